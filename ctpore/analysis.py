@@ -1,0 +1,174 @@
+"""``analyze``: one call from a stack (or array) to porosity numbers and a result folder."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+
+from . import __version__
+from .errors import InputError
+from .progress import Progress
+from .recipe import Recipe, load_recipe
+from .scan import Scan
+
+__all__ = ["AnalysisResult", "analyze", "SUMMARY_KEYS"]
+
+#: Keys every summary.json carries (later versions only add keys).
+SUMMARY_KEYS = (
+    "porosity_gas", "porosity_open", "porosity_closed",
+    "envelope_volume_mm3", "solid_volume_mm3", "pore_volume_mm3",
+    "open_pore_volume_mm3", "closed_pore_volume_mm3", "closed_pore_count",
+    "spacing_um", "shape_voxels", "threshold", "envelope", "derived", "warnings", "input",
+)
+
+
+@dataclass
+class AnalysisResult:
+    """The outcome of :func:`analyze`.
+
+    Attributes
+    ----------
+    summary : dict
+        Exactly what summary.json holds.
+    phases : uint8 array
+        0 exterior, 1 pore, 2 solid.
+    scan : Scan
+        The grey stack and its voxel size.
+    recipe : Recipe
+        The parameters used, defaults filled in.
+    out : Path or None
+        The result folder, when one was written.
+    """
+
+    summary: dict
+    phases: np.ndarray
+    scan: Scan
+    recipe: Recipe
+    out: Path | None = None
+    timings_s: dict = field(default_factory=dict)
+
+
+def analyze(stack, *, spacing_um=None, recipe=None, out=None, force: bool = False,
+            quiet: bool = True, argv: list[str] | None = None) -> AnalysisResult:
+    """Segment a micro-CT stack of one piece and measure its porosity.
+
+    Parameters
+    ----------
+    stack : str, Path, Scan or array (z, y, x)
+        A stack file or slice folder (see :func:`ctpore.read_stack`), a :class:`Scan`, or an
+        array (then ``spacing_um`` is required).
+    spacing_um : float or 3 floats, optional
+        Voxel size (dz, dy, dx) in µm; overrides the file's metadata.
+    recipe : Recipe, path of a TOML recipe, or None
+        Parameters; defaults when None.
+    out : str or Path, optional
+        Result folder to write (summary.json, measurements.csv, phases.ome.tif, recipe.toml,
+        provenance.json). Nothing is written when None.
+    force : bool
+        Replace an existing result folder.
+    quiet : bool
+        Print no progress.
+    argv : list of str, optional
+        Command line, recorded in provenance.json.
+
+    Returns
+    -------
+    AnalysisResult
+        ``.summary`` is the summary.json dict.
+
+    Raises
+    ------
+    InputError
+        Bad input (file, voxel size, recipe, destination); nothing is written.
+    """
+    from .io.stack_readers import check_finite, read_stack
+    from .measure.derived import derived_quantities
+    from .measure.porosity import porosity
+    from .segment.pipeline import segment
+
+    if not isinstance(recipe, Recipe):
+        recipe = load_recipe(recipe)
+    if out is not None:
+        from .io.result_folder import check_destination
+
+        inputs = (Path(stack),) if isinstance(stack, (str, Path)) else ()
+        check_destination(out, force=force, inputs=inputs)
+
+    progress = Progress(6, quiet=quiet)
+    with progress.step("read stack"):
+        scan = _as_scan(stack, spacing_um, read_stack)
+        grey = scan.load()
+        check_finite(grey, scan.source)
+        _check_contrast(grey, scan.source)
+    seg = segment(grey, spacing_um=scan.spacing_um, recipe=recipe, progress=progress)
+    with progress.step("porosity"):
+        measured = porosity(seg.phases, spacing_um=scan.spacing_um)
+        derived = derived_quantities(measured, recipe.sample)
+    summary = _summary(scan, recipe, seg, measured, derived)
+    result = AnalysisResult(summary=summary, phases=seg.phases, scan=scan, recipe=recipe,
+                            timings_s=progress.timings_s)
+    if out is not None:
+        from .io.result_writer import write_result
+
+        result.out = write_result(result, out, force=force, argv=argv)
+    return result
+
+
+def _as_scan(stack, spacing_um, read_stack) -> Scan:
+    if isinstance(stack, Scan):
+        if spacing_um is not None:
+            stack = Scan(stack.data, spacing_um, stack.source, "user", dict(stack.meta))
+        return stack
+    if isinstance(stack, (str, Path)):
+        return read_stack(stack, spacing_um=spacing_um)
+    array = np.asarray(stack)
+    if array.ndim != 3:
+        raise InputError(f"the array has {array.ndim} dimensions; a stack needs 3 (z, y, x)",
+                         "pass a 3-D array")
+    if spacing_um is None:
+        raise InputError("spacing_um is missing for an array input; ctpore never assumes one",
+                         "pass spacing_um=(dz, dy, dx) in µm")
+    return Scan(array, spacing_um, "<array>", "user", {"format": "array"})
+
+
+def _check_contrast(grey, source):
+    lo, hi = np.min(grey), np.max(grey)
+    if lo == hi:
+        raise InputError(f"{source}: every voxel has the grey value {lo}; no threshold exists",
+                         "check that the file is the reconstructed stack and not an empty export")
+
+
+def _summary(scan, recipe, seg, measured, derived) -> dict:
+    warnings = []
+    if measured.get("touches_border"):  # key from measure.porosity
+        warnings.append("the piece's envelope reaches the image border: the piece may be cut "
+                        "by the field of view, and pores at the border count as open")
+    band = seg.band
+    if band["porosity_high"] - band["porosity_low"] > 0.05:
+        warnings.append("the porosity moves by more than 0.05 within the threshold band: "
+                        "thin walls or low contrast; see docs/user-guide.md on thresholds")
+    t = seg.threshold
+    summary = dict(measured)
+    summary.update({
+        "input": scan.source,
+        "spacing_um": list(scan.spacing_um),
+        "spacing_source": scan.spacing_source,
+        "shape_voxels": list(scan.shape),
+        "threshold": {
+            "method": t.method,
+            "value": float(t.value),
+            "delta": float(t.delta),
+            "gas_peak": float(t.gas_peak),
+            "solid_peak": float(t.solid_peak),
+            "porosity_low": band["porosity_low"],
+            "porosity_high": band["porosity_high"],
+        },
+        "envelope": {"method": recipe.envelope.method, "radius_um": recipe.envelope.radius_um},
+        "derived": {k: v for k, v in derived.items() if k != "notes"},
+        "derived_notes": list(derived.get("notes", [])),
+        "warnings": warnings,
+        "ctpore_version": __version__,
+    })
+    return summary

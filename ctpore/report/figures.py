@@ -1,0 +1,79 @@
+"""Figures of a segmentation: grey histogram with the threshold band, orthogonal slices.
+
+matplotlib's Agg backend is used through the object API (no pyplot state), and metadata that
+would change between runs (software version, dates) is left out, so the same input gives the
+same files.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+
+__all__ = ["save_segmentation_figures", "PHASE_COLOURS"]
+
+#: Phase overlay colours (pore, solid), chosen to stay distinct for the common colour-vision
+#: deficiencies (blue / orange pair).
+PHASE_COLOURS = {"pore": "#2c7bb6", "solid": "#fdae61", "envelope": "#111111"}
+
+
+def _figure(width_in, height_in):
+    from matplotlib.figure import Figure
+
+    return Figure(figsize=(width_in, height_in), dpi=100)
+
+
+def _save(fig, path: Path):
+    path.parent.mkdir(parents=True, exist_ok=True)
+    fig.savefig(path, metadata={"Software": None})
+
+
+def save_segmentation_figures(result, folder: Path) -> list[Path]:
+    """Save threshold_histogram.png and slices.png for an AnalysisResult into ``folder``."""
+    folder = Path(folder)
+    grey = np.asarray(result.scan.data)
+    thr = result.summary["threshold"]
+    paths = []
+
+    fig = _figure(6.4, 3.6)
+    ax = fig.add_subplot()
+    sample = grey[:: max(1, grey.shape[0] // 64)].ravel()
+    ax.hist(sample, bins=256, color="#555555")
+    ax.axvspan(thr["value"] - thr["delta"], thr["value"] + thr["delta"], color="#fdae61",
+               alpha=0.4, label=f"band ±{thr['delta']:.4g}: porosity "
+               f"{thr['porosity_low']:.3f}–{thr['porosity_high']:.3f}")
+    ax.axvline(thr["value"], color="#d7191c", label=f"{thr['method']} threshold {thr['value']:.5g}")
+    ax.set_yscale("log")
+    ax.set_xlabel("grey value")
+    ax.set_ylabel("voxels (log)")
+    ax.legend(fontsize=7, loc="upper right")
+    fig.tight_layout()
+    paths.append(folder / "threshold_histogram.png")
+    _save(fig, paths[-1])
+
+    phases = result.phases
+    dz, dy, dx = result.scan.spacing_um
+    nz, ny, nx = phases.shape
+    views = [
+        ("z", grey[nz // 2], phases[nz // 2], (0, nx * dx, ny * dy, 0), ("x (µm)", "y (µm)")),
+        ("y", grey[:, ny // 2], phases[:, ny // 2], (0, nx * dx, nz * dz, 0), ("x (µm)", "z (µm)")),
+        ("x", grey[:, :, nx // 2], phases[:, :, nx // 2], (0, ny * dy, nz * dz, 0),
+         ("y (µm)", "z (µm)")),
+    ]
+    fig = _figure(12, 4.2)
+    for i, (axis, g, p, extent, labels) in enumerate(views):
+        ax = fig.add_subplot(1, 3, i + 1)
+        ax.imshow(g, cmap="gray", extent=extent, interpolation="nearest")
+        ax.contour(p == 2, levels=[0.5], colors=[PHASE_COLOURS["solid"]], linewidths=0.5,
+                   extent=extent, origin="upper")
+        ax.contour(p > 0, levels=[0.5], colors=[PHASE_COLOURS["pore"]], linewidths=1.0,
+                   extent=extent, origin="upper")
+        ax.set_title(f"middle slice across {axis}", fontsize=9)
+        ax.set_xlabel(labels[0])
+        ax.set_ylabel(labels[1])
+    fig.suptitle("solid outline (orange), envelope (blue)", fontsize=9)
+    fig.tight_layout()
+    paths.append(folder / "slices.png")
+    _save(fig, paths[-1])
+    return paths
