@@ -96,7 +96,7 @@ def sensitivity_band(grey, envelope, choice: ThresholdChoice, *, spacing_um, rec
     for sign in (-1.0, 1.0):
         t = choice.value + sign * choice.delta
         solid = _solid_at(grey, t, spacing_um, recipe) & envelope
-        values[sign] = 1.0 - np.count_nonzero(solid) / env_count
+        values[sign] = (env_count - int(np.count_nonzero(solid))) / env_count
     low, high = sorted(values.values())
     return {"porosity_low": float(low), "porosity_high": float(high),
             "value_low": float(choice.value - choice.delta),
