@@ -19,16 +19,19 @@ _LAZY = {
     "load_recipe": "ctpore.recipe",
     "Scan": "ctpore.scan",
     "InputError": "ctpore.errors",
-    "segment": "ctpore.segment.pipeline",
+    "segment_stack": "ctpore.segment.pipeline",
     "porosity": "ctpore.measure.porosity",
 }
 
 __all__ = sorted(["__version__", *_LAZY])
 
 
+_ALIASES = {"segment_stack": "segment"}
+
+
 def __getattr__(name):
     if name in _LAZY:
-        value = getattr(importlib.import_module(_LAZY[name]), name)
+        value = getattr(importlib.import_module(_LAZY[name]), _ALIASES.get(name, name))
         globals()[name] = value
         return value
     raise AttributeError(f"module 'ctpore' has no attribute {name!r}")

@@ -48,6 +48,7 @@ class AnalysisResult:
     recipe: Recipe
     out: Path | None = None
     timings_s: dict = field(default_factory=dict)
+    histogram: tuple | None = None  # (counts, bin centres) of the grey values thresholded
 
 
 def analyze(stack, *, spacing_um=None, recipe=None, out=None, force: bool = False,
@@ -107,8 +108,10 @@ def analyze(stack, *, spacing_um=None, recipe=None, out=None, force: bool = Fals
         measured = porosity(seg.phases, spacing_um=scan.spacing_um)
         derived = derived_quantities(measured, recipe.sample)
     summary = _summary(scan, recipe, seg, measured, derived)
+    from .segment.threshold import grey_histogram
+
     result = AnalysisResult(summary=summary, phases=seg.phases, scan=scan, recipe=recipe,
-                            timings_s=progress.timings_s)
+                            timings_s=progress.timings_s, histogram=grey_histogram(seg.grey))
     if out is not None:
         from .io.result_writer import write_result
 
@@ -145,6 +148,11 @@ def _summary(scan, recipe, seg, measured, derived) -> dict:
     if measured.get("touches_border"):  # key from measure.porosity
         warnings.append("the piece's envelope reaches the image border: the piece may be cut "
                         "by the field of view, and pores at the border count as open")
+    if scan.meta.get("spacing_differs_from_metadata"):
+        warnings.append(f"the voxel size given ({', '.join(f'{v:g}' for v in scan.spacing_um)} "
+                        f"µm) differs from the file's metadata "
+                        f"({scan.meta.get('metadata_spacing_um')}); the given one was used")
+    warnings.extend(n for n in derived.get("notes", []) if n.startswith("inconsistent"))
     band = seg.band
     if band["porosity_high"] - band["porosity_low"] > 0.05:
         warnings.append("the porosity moves by more than 0.05 within the threshold band: "

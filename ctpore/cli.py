@@ -44,7 +44,6 @@ def _build_parser() -> argparse.ArgumentParser:
     d.add_argument("--out", metavar="DIR", default="ctpore_demo", help="demo folder "
                    "(default ./ctpore_demo)")
     d.add_argument("--force", action="store_true", help="replace an existing demo folder")
-    d.add_argument("--quick", action="store_true", help="smaller pieces, for a fast check")
     d.add_argument("--quiet", action="store_true", help="no progress lines")
 
     r = sub.add_parser("recipe", help="print the default recipe (all keys, documented in "
@@ -64,7 +63,7 @@ def main(argv: list[str] | None = None) -> int:
         if args.command == "demo":
             from .demo import run_demo
 
-            run_demo(args.out, force=args.force, quick=args.quick, quiet=quiet)
+            run_demo(args.out, force=args.force, quiet=quiet)
             return 0
         if args.command == "recipe":
             from .recipe import load_recipe

@@ -33,11 +33,9 @@ solid_density_g_cm3 = 1.5
 moisture_basis = "wet"
 """
 
-QUICK_SHAPE = (56, 80, 80)
 
-
-def run_demo(out="ctpore_demo", *, force: bool = False, quick: bool = False,
-             quiet: bool = False, stream=None) -> list[dict]:
+def run_demo(out="ctpore_demo", *, force: bool = False, quiet: bool = False,
+             stream=None) -> list[dict]:
     """Generate the demo scenario into ``out`` and analyse every piece.
 
     Writes ``out/stacks/`` (the stacks, truth.json per piece, scenario.csv),
@@ -66,8 +64,7 @@ def run_demo(out="ctpore_demo", *, force: bool = False, quick: bool = False,
         (tmp / "demo_recipe.toml").write_text(DEMO_RECIPE, encoding="utf-8")
         progress = Progress(2, quiet=quiet, label="ctpore demo")
         with progress.step("generate the scenario's stacks"):
-            kwargs = {"shape": QUICK_SHAPE} if quick else {}
-            manifest = generate_scenario(tmp / "stacks", **kwargs)
+            manifest = generate_scenario(tmp / "stacks")
         with progress.step(f"analyse {len(manifest)} pieces"):
             for entry in manifest:
                 recipe = base_recipe.replace("sample", moisture=float(entry["moisture_wb"]),

@@ -14,12 +14,17 @@ __all__ = ["provenance_record", "sha256_of_input"]
 _PACKAGES = ("numpy", "scipy", "scikit-image", "tifffile", "edt", "matplotlib", "porespy")
 
 
-def sha256_of_input(path: str | Path) -> str:
-    """SHA-256 of a stack file, or of a slice folder (each file's name and bytes, sorted)."""
+def sha256_of_input(path: str | Path, files: list[str] | None = None) -> str:
+    """SHA-256 of a stack file, or of a slice folder: each slice file's name and bytes, in
+    reading order (``files``, as the reader used them; every visible file when None)."""
     path = Path(path)
     h = hashlib.sha256()
-    files = [path] if path.is_file() else sorted(p for p in path.iterdir() if p.is_file()
-                                                 and not p.name.startswith("."))
+    if path.is_file():
+        files = [path]
+    elif files is not None:
+        files = [path / f for f in files]
+    else:
+        files = sorted(p for p in path.iterdir() if p.is_file() and not p.name.startswith("."))
     for f in files:
         if path.is_dir():
             h.update(f.name.encode() + b"\0")
@@ -30,7 +35,7 @@ def sha256_of_input(path: str | Path) -> str:
 
 
 def provenance_record(*, source: str, argv: list[str] | None, spacing_source: str,
-                      timings_s: dict | None = None) -> dict:
+                      timings_s: dict | None = None, files: list[str] | None = None) -> dict:
     """Versions, input hash, command line and UTC time of a run."""
     from . import __version__
 
@@ -46,7 +51,7 @@ def provenance_record(*, source: str, argv: list[str] | None, spacing_source: st
         "platform": platform.platform(),
         "packages": versions,
         "input": source,
-        "input_sha256": sha256_of_input(source) if source and Path(source).exists() else None,
+        "input_sha256": sha256_of_input(source, files) if source and Path(source).exists() else None,
         "spacing_source": spacing_source,
         "command_line": argv,
         "utc_time": datetime.now(timezone.utc).isoformat(timespec="seconds"),

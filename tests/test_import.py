@@ -25,7 +25,10 @@ def test_public_api_is_pinned():
 
     assert ctpore.__all__ == sorted([
         "AnalysisResult", "InputError", "Recipe", "Scan", "__version__", "analyze",
-        "load_recipe", "porosity", "read_stack", "segment", "write_ome_tiff",
+        "load_recipe", "porosity", "read_stack", "segment_stack", "write_ome_tiff",
     ])
+    import ctpore.segment.pipeline  # importing subpackages must not shadow public names
+
     for name in ctpore.__all__:
         assert getattr(ctpore, name) is not None
+    assert callable(ctpore.segment_stack) and callable(ctpore.porosity)

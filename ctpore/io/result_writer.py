@@ -30,7 +30,8 @@ def write_result(result, out, *, force: bool, argv=None) -> Path:
         write_json(tmp / "provenance.json",
                    provenance_record(source=result.scan.source, argv=argv,
                                      spacing_source=result.scan.spacing_source,
-                                     timings_s=result.timings_s))
+                                     timings_s=result.timings_s,
+                                     files=result.scan.meta.get("files")))
         save_segmentation_figures(result, tmp / "figures")
     return out
 

@@ -29,6 +29,16 @@ def _save(fig, path: Path):
     fig.savefig(path, metadata={"Software": None})
 
 
+def _rebin(counts, centres, n_bins):
+    """Sum a fine histogram into at most ``n_bins`` equal groups of bins, for display."""
+    step = centres[1] - centres[0] if len(centres) > 1 else 1.0
+    group = max(1, int(np.ceil(len(counts) / n_bins)))
+    pad = (-len(counts)) % group
+    grouped = np.pad(counts, (0, pad)).reshape(-1, group).sum(axis=1)
+    edges = centres[0] - step / 2 + np.arange(len(grouped) + 1) * group * step
+    return grouped, edges
+
+
 def save_segmentation_figures(result, folder: Path) -> list[Path]:
     """Save threshold_histogram.png and slices.png for an AnalysisResult into ``folder``."""
     folder = Path(folder)
@@ -38,8 +48,9 @@ def save_segmentation_figures(result, folder: Path) -> list[Path]:
 
     fig = _figure(6.4, 3.6)
     ax = fig.add_subplot()
-    sample = grey[:: max(1, grey.shape[0] // 64)].ravel()
-    ax.hist(sample, bins=256, color="#555555")
+    counts, centres = result.histogram  # of the grey values the threshold was applied to
+    counts, edges = _rebin(np.asarray(counts), np.asarray(centres, dtype=float), 256)
+    ax.stairs(counts, edges, color="#555555", fill=True)
     ax.axvspan(thr["value"] - thr["delta"], thr["value"] + thr["delta"], color="#fdae61",
                alpha=0.4, label=f"band ±{thr['delta']:.4g}: porosity "
                f"{thr['porosity_low']:.3f}–{thr['porosity_high']:.3f}")
