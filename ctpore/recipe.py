@@ -24,12 +24,18 @@ __all__ = [
     "CleanSection",
     "EnvelopeSection",
     "SampleSection",
+    "StructureSection",
+    "ProfilesSection",
+    "CoarsenSection",
+    "RevSection",
     "load_recipe",
 ]
 
 DENOISE_METHODS = ("none", "median", "gaussian")
 THRESHOLD_METHODS = ("otsu", "isodata", "li", "triangle", "multiotsu", "peak_midpoint", "manual")
 ENVELOPE_METHODS = ("closing", "rolling_sphere", "slice_hull")
+KERNELS = ("box", "ball", "gaussian")
+LONG_AXES = ("auto", "z", "y", "x")
 MOISTURE_BASES = ("wet", "dry")
 
 
@@ -171,12 +177,113 @@ class SampleSection:
             raise InputError("sample.unpuffed_porosity must be in [0, 1)", "0 if unknown")
 
 
+@dataclass(frozen=True)
+class StructureSection:
+    """Cell and wall measures (local thickness, cells, surface, topology, anisotropy, chords).
+
+    enabled : run the structure measures at all (they cost more than porosity).
+    min_cell_volume_um3 : cells smaller than this are left out of the cell statistics.
+    surface_sigma_um : Gaussian pre-smoothing of the grey image before marching cubes (0: none).
+    chord_bin_um : bin width of the chord-length histograms (0: one voxel of the finest axis).
+    thickness_bin_um : bin width of the thickness histograms (0: one voxel of the finest axis).
+    """
+
+    enabled: bool = True
+    min_cell_volume_um3: float = 0.0
+    surface_sigma_um: float = 0.0
+    chord_bin_um: float = 0.0
+    thickness_bin_um: float = 0.0
+
+    def check(self):
+        for name in ("min_cell_volume_um3", "surface_sigma_um", "chord_bin_um",
+                     "thickness_bin_um"):
+            _nonneg(f"structure.{name}", getattr(self, name))
+
+
+@dataclass(frozen=True)
+class ProfilesSection:
+    """Where the porosity sits: depth, radial, axial profiles and the r–z map.
+
+    enabled : write profiles with every analysis.
+    long_axis : "auto" (principal axis of the envelope with the smallest moment of inertia) or
+        a fixed grid axis "z", "y", "x".
+    depth_bin_um, radial_bin_um, axial_bin_um : bin widths in µm (0: 2 voxels of the
+        coarsest axis).
+    axial_window_um : radial profile only within |axial position| ≤ this (0: whole piece).
+    """
+
+    enabled: bool = True
+    long_axis: str = "auto"
+    depth_bin_um: float = 0.0
+    radial_bin_um: float = 0.0
+    axial_bin_um: float = 0.0
+    axial_window_um: float = 0.0
+
+    def check(self):
+        _choice("profiles.long_axis", self.long_axis, LONG_AXES)
+        for name in ("depth_bin_um", "radial_bin_um", "axial_bin_um", "axial_window_um"):
+            _nonneg(f"profiles.{name}", getattr(self, name))
+
+
+@dataclass(frozen=True)
+class CoarsenSection:
+    """Continuum-scale porosity field: normalised (masked) averaging with a named kernel.
+
+    kernel : "box" (cube of side width_um), "ball" (diameter width_um) or "gaussian"
+        (σ = width_um, truncated at ``truncate_sigma`` σ).
+    width_um : kernel width in µm; 0 means "use the REV study's recommendation".
+    min_coverage : points whose kernel holds less than this fraction of piece volume are
+        masked (NaN).
+    """
+
+    kernel: str = "gaussian"
+    width_um: float = 0.0
+    truncate_sigma: float = 3.0
+    min_coverage: float = 0.5
+
+    def check(self):
+        _choice("coarsen.kernel", self.kernel, KERNELS)
+        _nonneg("coarsen.width_um", self.width_um)
+        if not self.truncate_sigma > 0:
+            raise InputError("coarsen.truncate_sigma must be > 0", "3.0 is the default")
+        if not 0 <= self.min_coverage <= 1:
+            raise InputError("coarsen.min_coverage must be in [0, 1]", "0.5 is the default")
+
+
+@dataclass(frozen=True)
+class RevSection:
+    """Representative-volume study (Kanit et al. 2003).
+
+    windows : number of windows per size; sizes : number of window sizes (log-spaced from
+    ``min_width_um`` to the largest cube that fits the envelope); relative_error : target
+    relative error of the porosity for the recommended width; seed : random seed.
+    """
+
+    windows: int = 300
+    sizes: int = 8
+    min_width_um: float = 0.0
+    relative_error: float = 0.05
+    seed: int = 0
+
+    def check(self):
+        if self.windows < 10 or self.sizes < 3:
+            raise InputError("rev.windows must be ≥ 10 and rev.sizes ≥ 3",
+                             "defaults are 300 windows and 8 sizes")
+        _nonneg("rev.min_width_um", self.min_width_um)
+        if not 0 < self.relative_error < 1:
+            raise InputError("rev.relative_error must be in (0, 1)", "0.05 is the default")
+
+
 _SECTIONS = {
     "denoise": DenoiseSection,
     "threshold": ThresholdSection,
     "clean": CleanSection,
     "envelope": EnvelopeSection,
     "sample": SampleSection,
+    "structure": StructureSection,
+    "profiles": ProfilesSection,
+    "coarsen": CoarsenSection,
+    "rev": RevSection,
 }
 
 
@@ -189,6 +296,10 @@ class Recipe:
     clean: CleanSection = field(default_factory=CleanSection)
     envelope: EnvelopeSection = field(default_factory=EnvelopeSection)
     sample: SampleSection = field(default_factory=SampleSection)
+    structure: StructureSection = field(default_factory=StructureSection)
+    profiles: ProfilesSection = field(default_factory=ProfilesSection)
+    coarsen: CoarsenSection = field(default_factory=CoarsenSection)
+    rev: RevSection = field(default_factory=RevSection)
 
     def __post_init__(self):
         for name in _SECTIONS:
