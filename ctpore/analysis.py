@@ -13,7 +13,7 @@ from .progress import Progress
 from .recipe import Recipe, load_recipe
 from .scan import Scan
 
-__all__ = ["AnalysisResult", "analyze", "SUMMARY_KEYS"]
+__all__ = ["AnalysisResult", "analyze", "SUMMARY_KEYS", "STRUCTURE_KEYS"]
 
 #: Keys every summary.json carries (later versions only add keys).
 SUMMARY_KEYS = (
@@ -21,6 +21,15 @@ SUMMARY_KEYS = (
     "envelope_volume_mm3", "solid_volume_mm3", "pore_volume_mm3",
     "open_pore_volume_mm3", "closed_pore_volume_mm3", "closed_pore_count",
     "spacing_um", "shape_voxels", "threshold", "envelope", "derived", "warnings", "input",
+)
+
+
+#: Keys added when the [structure] measures run (the default).
+STRUCTURE_KEYS = (
+    "pore_thickness_mean_um", "pore_thickness_d50_um", "wall_thickness_mean_um",
+    "wall_thickness_d50_um", "cell_count", "cell_density_per_mm3", "cell_diameter_mean_um",
+    "specific_surface_per_mm", "euler_characteristic", "connectivity_density_per_mm3",
+    "degree_of_anisotropy",
 )
 
 
@@ -49,6 +58,8 @@ class AnalysisResult:
     out: Path | None = None
     timings_s: dict = field(default_factory=dict)
     histogram: tuple | None = None  # (counts, bin centres) of the grey values thresholded
+    structure: object | None = None  # ctpore.measure.structure.StructureResult, when run
+    profiles: dict | None = None  # ctpore.profiles.profiles_for_result output, when run
 
 
 def analyze(stack, *, spacing_um=None, recipe=None, out=None, force: bool = False,
@@ -97,7 +108,8 @@ def analyze(stack, *, spacing_um=None, recipe=None, out=None, force: bool = Fals
         inputs = (Path(stack),) if isinstance(stack, (str, Path)) else ()
         check_destination(out, force=force, inputs=inputs)
 
-    progress = Progress(6, quiet=quiet)
+    progress = Progress(6 + (3 if recipe.structure.enabled else 0)
+                        + (1 if recipe.profiles.enabled else 0), quiet=quiet)
     with progress.step("read stack"):
         scan = _as_scan(stack, spacing_um, read_stack)
         grey = scan.load()
@@ -108,10 +120,28 @@ def analyze(stack, *, spacing_um=None, recipe=None, out=None, force: bool = Fals
         measured = porosity(seg.phases, spacing_um=scan.spacing_um)
         derived = derived_quantities(measured, recipe.sample)
     summary = _summary(scan, recipe, seg, measured, derived)
+    structure = None
+    if recipe.structure.enabled:
+        from .measure.structure import structure_measures
+
+        structure = structure_measures(seg.phases, seg.grey, threshold_value=seg.threshold.value,
+                                       spacing_um=scan.spacing_um, section=recipe.structure,
+                                       step=progress.step)
+        summary.update(structure.summary)
+        summary["warnings"].extend(_structure_warnings(structure, scan.spacing_um))
+    profiles = None
+    if recipe.profiles.enabled:
+        from .profiles import profiles_for_result
+
+        with progress.step("profiles: depth, radial, axial, r-z map"):
+            profiles = profiles_for_result(seg.phases, spacing_um=scan.spacing_um,
+                                           section=recipe.profiles)
+        summary["piece_frame"] = profiles["frame"].to_dict()
     from .segment.threshold import grey_histogram
 
     result = AnalysisResult(summary=summary, phases=seg.phases, scan=scan, recipe=recipe,
-                            timings_s=progress.timings_s, histogram=grey_histogram(seg.grey))
+                            timings_s=progress.timings_s, histogram=grey_histogram(seg.grey),
+                            structure=structure, profiles=profiles)
     if out is not None:
         from .io.result_writer import write_result
 
@@ -141,6 +171,21 @@ def _check_contrast(grey, source):
     if lo == hi:
         raise InputError(f"{source}: every voxel has the grey value {lo}; no threshold exists",
                          "check that the file is the reconstructed stack and not an empty export")
+
+
+def _structure_warnings(structure, spacing_um) -> list[str]:
+    """Flag cell counts dominated by specks of a few voxels (noise counted as cells)."""
+    table = structure.cell_table
+    if len(table.volume_um3) == 0:
+        return []
+    small = float(np.prod(spacing_um)) * 27
+    share = float(np.mean(np.asarray(table.volume_um3) < small))
+    if share > 0.3:
+        return [f"{share:.0%} of the cells are smaller than 27 voxels ({small:.4g} µm³): noise "
+                "specks or fragments are being counted as cells; set "
+                "structure.min_cell_volume_um3 (merges them into neighbours) or "
+                "clean.min_pore_speck_um3"]
+    return []
 
 
 def _summary(scan, recipe, seg, measured, derived) -> dict:

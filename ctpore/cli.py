@@ -46,6 +46,59 @@ def _build_parser() -> argparse.ArgumentParser:
     d.add_argument("--force", action="store_true", help="replace an existing demo folder")
     d.add_argument("--quiet", action="store_true", help="no progress lines")
 
+    p = sub.add_parser("profiles", help="re-make the porosity profiles of a result folder "
+                       "(depth, radial, axial, r-z map) without re-segmenting")
+    p.add_argument("result", help="result folder of `ctpore analyze`")
+    p.add_argument("--recipe", metavar="TOML", help="recipe whose [profiles] section to use "
+                   "(default: the result's own recipe.toml)")
+    p.add_argument("--force", action="store_true", help="replace existing profiles")
+    p.add_argument("--quiet", action="store_true", help="no progress lines")
+
+    v = sub.add_parser("rev", help="representative-volume study: porosity variance against "
+                       "window size, integral range, recommended kernel width")
+    v.add_argument("result", help="result folder of `ctpore analyze`")
+    v.add_argument("--recipe", metavar="TOML", help="recipe whose [rev] section to use "
+                   "(default: the result's own recipe.toml)")
+    v.add_argument("--relative-error", type=float, metavar="EPS",
+                   help="target relative error of the porosity (overrides rev.relative_error)")
+    v.add_argument("--force", action="store_true", help="replace an existing rev/ folder")
+    v.add_argument("--quiet", action="store_true", help="no progress lines")
+
+    c = sub.add_parser("coarsen", help="continuum-scale porosity field: normalised averaging "
+                       "with a named kernel and width")
+    c.add_argument("result", help="result folder of `ctpore analyze`")
+    c.add_argument("--kernel", choices=("box", "ball", "gaussian"),
+                   help="kernel shape (default: the recipe's coarsen.kernel)")
+    c.add_argument("--width", metavar="W", help="kernel width, e.g. 400um or 0.4mm (box side, "
+                   "ball diameter, Gaussian sigma), or 'auto' for the REV recommendation")
+    c.add_argument("--grid-spacing", metavar="UM", help="sample on a regular grid with this "
+                   "step (one value or z,y,x in µm) instead of the scan grid")
+    c.add_argument("--grid-origin", metavar="UM", default="0", help="grid origin z,y,x in µm "
+                   "from the centre of the scan's first voxel (default 0)")
+    c.add_argument("--grid-shape", metavar="N", help="grid points along z,y,x (default: "
+                   "enough to cover the scan)")
+    c.add_argument("--recipe", metavar="TOML", help="recipe whose [coarsen] and [rev] sections "
+                   "to use (default: the result's own recipe.toml)")
+    c.add_argument("--force", action="store_true", help="replace an existing field folder")
+    c.add_argument("--quiet", action="store_true", help="no progress lines")
+
+    b = sub.add_parser("batch", help="run one recipe over many pieces; piece-level statistics "
+                       "and equivalence to a reference batch")
+    b.add_argument("manifest", help="manifest CSV (sample_id, batch, stack_path, optional "
+                   "spacing_um, mass_mg, moisture_wb, ...) or a folder with one sub-folder per "
+                   "batch")
+    b.add_argument("--recipe", metavar="TOML", help="recipe for every piece; its [batch] "
+                   "section names the reference batch, measures and margins")
+    b.add_argument("--out", metavar="DIR", required=True, help="batch folder (resumable)")
+    b.add_argument("--workers", type=int, default=2, metavar="N", help="worker processes "
+                   "(default 2)")
+    b.add_argument("--spacing", metavar="UM", help="voxel size for pieces whose manifest row "
+                   "and file give none")
+    b.add_argument("--batch-column", default="batch", metavar="NAME", help="manifest column "
+                   "that names the batch (default 'batch')")
+    b.add_argument("--force", action="store_true", help="recompute every piece")
+    b.add_argument("--quiet", action="store_true", help="no progress lines")
+
     r = sub.add_parser("recipe", help="print the default recipe (all keys, documented in "
                        "docs/recipe.md) or check one")
     r.add_argument("--check", metavar="TOML", help="validate a recipe file and print it in full")
@@ -65,6 +118,12 @@ def main(argv: list[str] | None = None) -> int:
 
             run_demo(args.out, force=args.force, quiet=quiet)
             return 0
+        if args.command in ("profiles", "rev", "coarsen"):
+            from .result_commands import run_result_command
+
+            return run_result_command(args)
+        if args.command == "batch":
+            return _batch(args, quiet)
         if args.command == "recipe":
             from .recipe import load_recipe
 
@@ -97,6 +156,42 @@ def _analyze(args, argv, quiet) -> int:
         for w in s["warnings"]:
             print(f"  warning: {w}")
     return 0
+
+
+def _batch(args, quiet) -> int:
+    from .batch.manifest import read_manifest
+    from .batch.runner import run_batch
+    from .batch.verdicts import batch_report, write_batch_outputs
+    from .recipe import load_recipe
+
+    recipe = load_recipe(args.recipe)
+    if args.workers < 1:
+        raise InputError(f"--workers must be at least 1; got {args.workers}", "use e.g. 2")
+    rows = read_manifest(args.manifest, spacing_um=args.spacing, batch_column=args.batch_column)
+    run = run_batch(rows, recipe=recipe, out_dir=args.out, workers=args.workers,
+                    force=args.force, quiet=quiet)
+    b = recipe.batch
+    report = batch_report(run.table, reference=b.reference or None, margins=dict(b.margins),
+                          measures=b.measures, alpha=b.alpha,
+                          control_measure=b.control_measure or None, pieces_dir=run.pieces_dir)
+    write_batch_outputs(run.out_dir, report)
+    _print_verdicts(report, run)
+    return 0
+
+
+def _print_verdicts(report, run) -> None:
+    ok = sum(1 for p in run.table if p.get("status") in ("ok", "skipped-existing"))
+    print(f"{run.out_dir}: {ok} of {len(run.table)} pieces analysed; "
+          f"{len(run.failures)} failed")
+    for f in run.failures:
+        print(f"  failed: {f.get('sample_id')}: {f.get('error')}")
+    ref = report["reference"]
+    for batch, per_measure in report["verdicts"].items():
+        for measure, cmp in per_measure.items():
+            print(f"  {batch} vs {ref}: {measure}: {cmp['verdict']} "
+                  f"(difference {cmp['difference']:+.4g}, margin {cmp.get('margin', '-')})")
+    for note in report.get("notes", []):
+        print(f"  note: {note}")
 
 
 def _stem(path) -> str:

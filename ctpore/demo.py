@@ -28,9 +28,19 @@ min_pore_speck_um3 = 5000.0
 method = "closing"
 radius_um = 120.0
 
+[structure]
+min_cell_volume_um3 = 20000.0
+
 [sample]
 solid_density_g_cm3 = 1.5
 moisture_basis = "wet"
+
+[batch]
+# quality control: lot_A is the reference; margins are the team's own choice (invented here)
+reference = "lot_A"
+measures = ["porosity_gas", "porosity_open", "wall_thickness_d50_um", "pore_thickness_d50_um",
+            "cell_density_per_mm3", "specific_surface_per_mm"]
+margins = {porosity_gas = 0.03, porosity_open = 0.05, wall_thickness_d50_um = 4.0, pore_thickness_d50_um = 25.0}
 """
 
 
@@ -39,8 +49,10 @@ def run_demo(out="ctpore_demo", *, force: bool = False, quiet: bool = False,
     """Generate the demo scenario into ``out`` and analyse every piece.
 
     Writes ``out/stacks/`` (the stacks, truth.json per piece, scenario.csv),
-    ``out/results/<sample_id>/`` (a result folder per piece), ``out/demo_recipe.toml`` and
-    ``out/demo_summary.csv`` (measured against true values). The folder appears whole or not
+    ``out/results/<sample_id>/`` (a result folder per piece), ``out/demo_recipe.toml``,
+    ``out/demo_summary.csv`` (measured against true values), and the quality-control part:
+    ``out/lots/`` (three lots of five pieces, batches.csv) and ``out/batch/`` (a batch run
+    with piece-level statistics and verdicts against the reference lot). The folder appears whole or not
     at all; an existing one is replaced only with ``force``.
 
     Returns
@@ -51,7 +63,7 @@ def run_demo(out="ctpore_demo", *, force: bool = False, quiet: bool = False,
     import tomllib
 
     from .analysis import analyze
-    from .demo_scenario import generate_scenario
+    from .demo_scenario import generate_batches, generate_scenario
     from .io.result_folder import result_folder, write_csv_rows
     from .progress import Progress
     from .recipe import Recipe
@@ -62,7 +74,7 @@ def run_demo(out="ctpore_demo", *, force: bool = False, quiet: bool = False,
     rows = []
     with result_folder(out, force=force) as tmp:
         (tmp / "demo_recipe.toml").write_text(DEMO_RECIPE, encoding="utf-8")
-        progress = Progress(2, quiet=quiet, label="ctpore demo")
+        progress = Progress(4, quiet=quiet, label="ctpore demo")
         with progress.step("generate the scenario's stacks"):
             manifest = generate_scenario(tmp / "stacks")
         with progress.step(f"analyse {len(manifest)} pieces"):
@@ -77,8 +89,39 @@ def run_demo(out="ctpore_demo", *, force: bool = False, quiet: bool = False,
                 rows.append(_row(entry, truth, result.summary))
         header = list(rows[0])
         write_csv_rows(tmp / "demo_summary.csv", header, [list(r.values()) for r in rows])
+        with progress.step("generate three production lots"):
+            generate_batches(tmp / "lots")
+        with progress.step("batch run: 15 pieces, verdicts against lot_A"):
+            report = _run_batch(tmp, base_recipe, quiet)
     _print_table(rows, out, stream)
+    _print_verdicts(report, out, stream)
     return rows
+
+
+def _run_batch(tmp, recipe, quiet) -> dict:
+    from .batch.manifest import read_manifest
+    from .batch.runner import run_batch
+    from .batch.verdicts import batch_report, write_batch_outputs
+
+    manifest = read_manifest(tmp / "lots" / "batches.csv")
+    run = run_batch(manifest, recipe=recipe.replace("profiles", enabled=False),
+                    out_dir=tmp / "batch", workers=2, quiet=True)
+    b = recipe.batch
+    report = batch_report(run.table, reference=b.reference, margins=dict(b.margins),
+                          measures=b.measures, alpha=b.alpha, pieces_dir=run.pieces_dir)
+    write_batch_outputs(run.out_dir, report)
+    return report
+
+
+def _print_verdicts(report, out, stream):
+    print(f"\nQuality control (invented lots, piece = unit): each lot against "
+          f"{report['reference']}, TOST with the recipe's margins", file=stream)
+    for batch, per_measure in report["verdicts"].items():
+        for measure, cmp in per_measure.items():
+            print(f"  {batch} {measure:<26} difference {cmp['difference']:+10.4g}  "
+                  f"{cmp['verdict']}", file=stream)
+    print(f"Batch outputs: {out / 'batch'} (pieces.csv, batch_summary.csv, verdicts.json, "
+          "figures/)", file=stream)
 
 
 def _row(entry, truth, s) -> dict:

@@ -44,8 +44,8 @@ from scipy.spatial.transform import Rotation
 from .errors import InputError
 from .spacing import as_spacing_um
 
-__all__ = ["DemoPiece", "SETTINGS", "SCENARIO", "expansion_progress", "make_piece",
-           "generate_scenario"]
+__all__ = ["DemoPiece", "SETTINGS", "SCENARIO", "BATCH_LOTS", "expansion_progress",
+           "make_piece", "generate_scenario", "generate_batches"]
 
 # Invented heater settings: time constant of expansion and a delay before expansion starts
 # (expansion of a grain starts after a few seconds of heating and is over within ~15 s:
@@ -69,6 +69,15 @@ SCENARIO = [
      "format": "ome"},
     {"sample_id": "intense_12s", "setting": "intense", "time_s": 12.0, "seed": 4203,
      "format": "ome"},
+]
+
+# The demo's quality-control story: three production lots of five pieces each. Lot A is the
+# reference; lot B is made the same way (gentle, 10 s); lot C was deliberately run hotter and
+# longer (intense, 12 s), so its pieces are more porous and its walls thinner.
+BATCH_LOTS = [
+    {"batch": "lot_A", "setting": "gentle", "time_s": 10.0, "seeds": (5101, 5102, 5103, 5104, 5105)},
+    {"batch": "lot_B", "setting": "gentle", "time_s": 10.0, "seeds": (5201, 5202, 5203, 5204, 5205)},
+    {"batch": "lot_C", "setting": "intense", "time_s": 12.0, "seeds": (5301, 5302, 5303, 5304, 5305)},
 ]
 
 _SHAPE = (88, 128, 128)
@@ -517,6 +526,49 @@ def generate_scenario(out_dir, *, shape=_SHAPE, spacing_um=_SPACING_UM,
     with open(out / "scenario.csv", "w", newline="", encoding="utf-8") as fh:
         writer = csv.DictWriter(fh, fieldnames=columns, lineterminator="\n",
                                 extrasaction="ignore")
+        writer.writeheader()
+        writer.writerows(rows)
+    return rows
+
+
+def generate_batches(out_dir, *, shape=_SHAPE, spacing_um=_SPACING_UM) -> list[dict]:
+    """Write the lots of :data:`BATCH_LOTS` as OME-TIFF stacks and a ``batches.csv`` manifest.
+
+    Each piece goes to ``out_dir/<batch>/<sample_id>.ome.tif`` beside ``<sample_id>.truth.json``;
+    the manifest has the columns sample_id, batch, stack_path, setting, time_s, seed. Same
+    seeds, identical bytes.
+
+    Returns
+    -------
+    list of dict
+        The manifest rows.
+    """
+    import tifffile
+
+    out = Path(out_dir)
+    out.mkdir(parents=True, exist_ok=True)
+    dz, dy, dx = as_spacing_um(spacing_um)
+    rows = []
+    for lot in BATCH_LOTS:
+        (out / lot["batch"]).mkdir(exist_ok=True)
+        for k, seed in enumerate(lot["seeds"], start=1):
+            sid = f"{lot['batch']}_{k:02d}"
+            piece = make_piece(setting=lot["setting"], time_s=lot["time_s"], seed=seed,
+                               shape=shape, spacing_um=(dz, dy, dx))
+            rel = f"{lot['batch']}/{sid}.ome.tif"
+            tifffile.imwrite(out / rel, piece.grey, ome=True, datetime=False, metadata={
+                "axes": "ZYX", "Name": sid,
+                "UUID": str(uuid.uuid5(uuid.NAMESPACE_URL, f"ctpore-demo/{sid}/{seed}")),
+                "PhysicalSizeX": dx, "PhysicalSizeXUnit": "µm",
+                "PhysicalSizeY": dy, "PhysicalSizeYUnit": "µm",
+                "PhysicalSizeZ": dz, "PhysicalSizeZUnit": "µm"})
+            (out / lot["batch"] / f"{sid}.truth.json").write_text(
+                json.dumps(dict(piece.truth, sample_id=sid, batch=lot["batch"]), indent=2,
+                           sort_keys=True) + "\n", encoding="utf-8")
+            rows.append({"sample_id": sid, "batch": lot["batch"], "stack_path": rel,
+                         "setting": lot["setting"], "time_s": lot["time_s"], "seed": seed})
+    with open(out / "batches.csv", "w", newline="", encoding="utf-8") as fh:
+        writer = csv.DictWriter(fh, fieldnames=list(rows[0]), lineterminator="\n")
         writer.writeheader()
         writer.writerows(rows)
     return rows

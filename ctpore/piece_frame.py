@@ -1,7 +1,8 @@
 """The piece's own frame: centroid and principal axes of its envelope, in µm.
 
-Coordinates are physical, in µm, (z, y, x) order, with the origin at the outer corner of the
-image: the centre of voxel ``(i, j, k)`` lies at ``((i + 0.5)·dz, (j + 0.5)·dy, (k + 0.5)·dx)``.
+Coordinates are physical, in µm, (z, y, x) order, with the origin at the centre of voxel
+(0, 0, 0): the centre of voxel ``(i, j, k)`` lies at ``(i·dz, j·dy, k·dx)`` (the convention of
+OME-TIFF viewers and of :mod:`ctpore.continuum`).
 This one convention is used for the centroid, the extents and :func:`to_frame`.
 """
 
@@ -27,7 +28,7 @@ class PieceFrame:
     Attributes
     ----------
     centroid_um : tuple of 3 floats
-        Centre of mass of the envelope voxels (z, y, x), µm, voxel centres at (i + 0.5)·spacing.
+        Centre of mass of the envelope voxels (z, y, x), µm, voxel centres at i·spacing.
     axes : ndarray, shape (3, 3)
         Rows are unit vectors of the long, middle and short axis, in (z, y, x) components.
         The long and middle axes have their largest-magnitude component positive; the short
@@ -66,8 +67,8 @@ class PieceFrame:
         """A JSON-ready description of the frame (for frame.json)."""
         names = ("long", "middle", "short")
         return {
-            "coordinates": "µm, (z, y, x), origin at the image corner, voxel centre "
-                           "(i + 0.5)·spacing",
+            "coordinates": "µm, (z, y, x), origin at the centre of voxel (0, 0, 0), voxel centre "
+                           "i·spacing",
             "centroid_um": list(self.centroid_um),
             "axes": {n: self.axes[i].tolist() for i, n in enumerate(names)},
             "extents_um": {n: {"min": float(self.extents_um[i, 0]),
@@ -167,7 +168,7 @@ def to_frame(frame: PieceFrame, coords_um):
     ----------
     frame : PieceFrame
     coords_um : array_like, shape (..., 3)
-        Points (z, y, x) in µm, same convention as the frame (voxel centre (i + 0.5)·spacing).
+        Points (z, y, x) in µm, same convention as the frame (voxel centre i·spacing).
 
     Returns
     -------
@@ -197,7 +198,7 @@ def _moments(env: np.ndarray, spacing) -> tuple[np.ndarray, np.ndarray, int]:
     if n == 0:
         raise InputError("envelope: no voxel inside the piece (the envelope is empty)",
                          "check the segmentation: the piece was not found")
-    coords = [(np.arange(s) + 0.5) * h for s, h in zip(env.shape, spacing)]
+    coords = [np.arange(s) * h for s, h in zip(env.shape, spacing)]
     marg = [p_zy.sum(axis=1), p_zy.sum(axis=0), p_zx.sum(axis=0)]
     centroid = np.array([(m * c).sum() / n for m, c in zip(marg, coords)])
     d = [c - c0 for c, c0 in zip(coords, centroid)]
@@ -242,7 +243,7 @@ def _projection_tables(shape, spacing, centroid, axes):
     ``tables[k][i] + planes[k][j, l]``; every pass uses this same expression so that values
     agree to the last bit with the extents.
     """
-    coords = [(np.arange(s) + 0.5) * h - c for s, h, c in zip(shape, spacing, centroid)]
+    coords = [np.arange(s) * h - c for s, h, c in zip(shape, spacing, centroid)]
     planes, tables = [], []
     for k in range(3):
         u = axes[k]

@@ -13,7 +13,7 @@ envelope voxel count: the Delesse principle V_V = P_P applied to the voxel centr
 partition the envelope, the volume-weighted mean of any profile equals the bulk porosity
 exactly.
 
-Coordinates follow :mod:`ctpore.piece_frame`: µm, (z, y, x), voxel centre (i + 0.5)·spacing.
+Coordinates follow :mod:`ctpore.piece_frame`: µm, (z, y, x), voxel centre i·spacing.
 """
 
 from __future__ import annotations

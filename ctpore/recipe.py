@@ -28,6 +28,7 @@ __all__ = [
     "ProfilesSection",
     "CoarsenSection",
     "RevSection",
+    "BatchSection",
     "load_recipe",
 ]
 
@@ -182,9 +183,11 @@ class StructureSection:
     """Cell and wall measures (local thickness, cells, surface, topology, anisotropy, chords).
 
     enabled : run the structure measures at all (they cost more than porosity).
-    min_cell_volume_um3 : cells smaller than this are left out of the cell statistics.
+    min_cell_volume_um3 : cells smaller than this are merged into a neighbour or left out of
+        the cell statistics; 0 means 27 voxel volumes (a 3×3×3 cube, the smallest cell the
+        watershed resolves).
     surface_sigma_um : Gaussian pre-smoothing of the grey image before marching cubes (0: none).
-    chord_bin_um : bin width of the chord-length histograms (0: one voxel of the finest axis).
+    chord_bin_um : bin width of the chord-length histograms (0: the largest voxel size).
     thickness_bin_um : bin width of the thickness histograms (0: one voxel of the finest axis).
     """
 
@@ -274,6 +277,48 @@ class RevSection:
             raise InputError("rev.relative_error must be in (0, 1)", "0.05 is the default")
 
 
+_BATCH_MEASURES = ("porosity_gas", "porosity_open", "porosity_closed", "pore_thickness_d50_um",
+                   "wall_thickness_d50_um", "cell_density_per_mm3", "specific_surface_per_mm",
+                   "degree_of_anisotropy")
+
+
+@dataclass(frozen=True)
+class BatchSection:
+    """Piece-level statistics of a batch run against a reference batch.
+
+    reference : name of the reference batch ("" = the first batch in the manifest).
+    measures : summary.json keys compared between batches (piece-level values).
+    margins : equivalence margin ±Δ per measure, in the measure's own unit; a measure without a
+        margin gets the tests but no equivalence verdict.
+    alpha : significance level of every test (TOST uses the (1 − 2α) interval).
+    control_measure : measure of the individuals control chart ("" = the first measure).
+    """
+
+    reference: str = ""
+    measures: tuple = _BATCH_MEASURES
+    margins: dict = field(default_factory=dict)
+    alpha: float = 0.05
+    control_measure: str = ""
+
+    def __post_init__(self):
+        object.__setattr__(self, "measures", tuple(self.measures))
+        object.__setattr__(self, "margins", dict(self.margins))
+
+    def check(self):
+        if not self.measures or not all(isinstance(m, str) for m in self.measures):
+            raise InputError("batch.measures must be a non-empty list of summary keys",
+                             f"e.g. {list(_BATCH_MEASURES[:3])}")
+        for key, value in self.margins.items():
+            if isinstance(value, bool) or not isinstance(value, (int, float)) or \
+                    not (math.isfinite(value) and value > 0):
+                raise InputError(f"batch.margins.{key} must be a positive number; got {value!r}",
+                                 "give the margin in the measure's own unit, e.g. "
+                                 "porosity_gas = 0.03")
+        if not 0 < self.alpha < 0.5:
+            raise InputError(f"batch.alpha must be in (0, 0.5); got {self.alpha}",
+                             "0.05 is the default")
+
+
 _SECTIONS = {
     "denoise": DenoiseSection,
     "threshold": ThresholdSection,
@@ -284,6 +329,7 @@ _SECTIONS = {
     "profiles": ProfilesSection,
     "coarsen": CoarsenSection,
     "rev": RevSection,
+    "batch": BatchSection,
 }
 
 
@@ -300,6 +346,7 @@ class Recipe:
     profiles: ProfilesSection = field(default_factory=ProfilesSection)
     coarsen: CoarsenSection = field(default_factory=CoarsenSection)
     rev: RevSection = field(default_factory=RevSection)
+    batch: BatchSection = field(default_factory=BatchSection)
 
     def __post_init__(self):
         for name in _SECTIONS:
@@ -386,6 +433,8 @@ def _coerce(section_cls, key, value, source, section):
         "int": isinstance(value, int) and not isinstance(value, bool),
         "bool": isinstance(value, bool),
         "str": isinstance(value, str),
+        "tuple": isinstance(value, (list, tuple)),
+        "dict": isinstance(value, dict),
     }.get(kind, True)
     if not ok:
         raise InputError(f"{source}: [{section}] {key} = {value!r} should be a {kind}",
@@ -405,6 +454,10 @@ def _nonneg(name, value):
 
 
 def _toml_value(value) -> str:
+    if isinstance(value, (list, tuple)):
+        return "[" + ", ".join(_toml_value(v) for v in value) + "]"
+    if isinstance(value, dict):
+        return "{" + ", ".join(f"{k} = {_toml_value(v)}" for k, v in value.items()) + "}"
     if isinstance(value, bool):
         return "true" if value else "false"
     if isinstance(value, float):

@@ -7,7 +7,7 @@ import pytest
 from scipy import ndimage
 
 import ctpore
-from ctpore.analysis import SUMMARY_KEYS
+from ctpore.analysis import STRUCTURE_KEYS, SUMMARY_KEYS
 from ctpore.errors import InputError
 
 
@@ -40,7 +40,7 @@ def _porous_ellipsoid(spacing_um, *, seed=1, blur_um=0.0):
 def test_summary_has_stable_keys_and_units():
     grey, truth, _ = _porous_ellipsoid((10.0, 10.0, 10.0))
     r = ctpore.analyze(grey, spacing_um=10)
-    for key in SUMMARY_KEYS:
+    for key in SUMMARY_KEYS + STRUCTURE_KEYS:
         assert key in r.summary, key
     assert set(r.summary["threshold"]) >= {"method", "value", "porosity_low", "porosity_high"}
     assert r.summary["threshold"]["porosity_low"] <= r.summary["porosity_gas"] \
@@ -102,3 +102,24 @@ def test_sample_facts_reach_the_summary():
 def test_array_without_spacing_is_refused():
     with pytest.raises(InputError, match="spacing_um"):
         ctpore.analyze(np.zeros((4, 4, 4), np.uint16))
+
+
+def test_structure_measures_on_sealed_spherical_cells(tmp_path):
+    # Sealed spheres of radius 45 µm in a solid ellipsoid: cell count equals the number of
+    # spheres, each cell's local thickness is its diameter (Hildebrand & Rüegsegger 1997), no
+    # cell is open, and the solid has one component with one cavity per cell (χ = 1 + cells;
+    # Odgaard & Gundersen 1993).
+    grey, truth, _ = _porous_ellipsoid((10.0, 10.0, 10.0))
+    r = ctpore.analyze(grey, spacing_um=10, out=tmp_path / "res")
+    s = r.summary
+    n = s["closed_pore_count"]
+    assert s["cell_count"] == n and s["closed_cell_count"] == n and s["open_cell_count"] == 0
+    assert s["pore_thickness_d50_um"] == pytest.approx(90.0, abs=10.0)  # one voxel
+    assert s["euler_characteristic"] == 1 + n and s["connectivity"] == 0
+    for name in ("pore_thickness.ome.tif", "wall_thickness.ome.tif", "cells.csv",
+                 "thickness_distribution.csv", "chord_lengths.csv",
+                 "figures/thickness_distributions.png", "profiles/depth.csv",
+                 "profiles/rz_map.csv", "profiles/frame.json", "profiles/axial.svg"):
+        assert (tmp_path / "res" / name).is_file(), name
+    back = ctpore.read_stack(tmp_path / "res" / "pore_thickness.ome.tif").load()
+    np.testing.assert_array_equal(back, r.structure.pore_thickness)

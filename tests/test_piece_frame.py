@@ -13,8 +13,8 @@ from ctpore.piece_frame import PieceFrame, piece_frame, to_frame
 
 
 def _centres(mask, spacing):
-    """Voxel centres (i + 0.5)·spacing of the True voxels, (N, 3) in µm."""
-    return (np.argwhere(mask) + 0.5) * np.asarray(spacing)
+    """Voxel centres i·spacing of the True voxels, (N, 3) in µm."""
+    return np.argwhere(mask) * np.asarray(spacing)
 
 
 def _ellipsoid(semi_axes_um, spacing, rotation=np.eye(3)):
@@ -32,8 +32,8 @@ def test_single_voxel_centre_convention():
     env = np.zeros((4, 5, 6), dtype=bool)
     env[2, 3, 4] = True
     f = piece_frame(env, spacing_um=(2.0, 1.0, 0.5))
-    # documented convention: the centre of voxel (i, j, k) lies at (i + 0.5)·spacing
-    assert f.centroid_um == (5.0, 3.5, 2.25)
+    # documented convention: the centre of voxel (i, j, k) lies at i·spacing
+    assert f.centroid_um == (4.0, 3.0, 2.0)
     assert f.voxels == 1 and f.length_um == 0.0
     np.testing.assert_array_equal(f.extents_um, np.zeros((3, 2)))
     # one voxel is a uniform box: sd = h/√12 along each grid axis [derived]
@@ -49,7 +49,9 @@ def test_box_frame_is_exact(spacing):
     env = np.zeros(shape, dtype=bool)
     env[2:2 + int(lz / dz), 2:2 + int(ly / dy), 2:2 + int(lx / dx)] = True
     f = piece_frame(env, spacing_um=spacing)
-    corner = np.array([2 * dz, 2 * dy, 2 * dx])
+    # the box's lower face is the lower face of voxel 2, at (2 − ½)·spacing (voxel centres
+    # at i·spacing)
+    corner = np.array([1.5 * dz, 1.5 * dy, 1.5 * dx])
     np.testing.assert_allclose(f.centroid_um, corner + np.array([lz, ly, lx]) / 2, rtol=1e-12)
     np.testing.assert_allclose(np.abs(f.axes), [[0, 1, 0], [0, 0, 1], [1, 0, 0]], atol=1e-12)
     # a uniform box of side L has standard deviation L/√12 along that side [derived]; the

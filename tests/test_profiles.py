@@ -111,7 +111,7 @@ def test_radial_profile_of_a_rod_and_its_axial_window():
     # the rod is 10 × 10 voxels in (y, x): its centres lie at r ≤ 4.5·√2 from the axis
     assert t["bin_end_um"][-1] > 4.5 * np.sqrt(2) >= t["bin_start_um"][-1]
     # brute force: distances of the voxel centres from the z axis through the centroid
-    idx = np.argwhere(phases > 0) + 0.5
+    idx = np.argwhere(phases > 0).astype(float)
     r = np.hypot(idx[:, 1] - frame.centroid_um[1], idx[:, 2] - frame.centroid_um[2])
     a = idx[:, 0] - frame.centroid_um[0]
     np.testing.assert_array_equal(t["voxels"], np.bincount((r / 1.5).astype(int)))

@@ -451,6 +451,7 @@ def rev_study(phases, *, spacing_um, section: RevSection | None = None) -> RevRe
             "used_in_fit": False,
         })
 
+    _check_stationarity(rows, p, notes)
     a3 = _fit_integral_range(rows, p, v_env, spacing, corr_range, notes)
     if not math.isfinite(a3) or a3 <= 0:
         notes.append("the window variances gave no usable fit; A3 is the covariance sum")
@@ -468,6 +469,29 @@ def rev_study(phases, *, spacing_um, section: RevSection | None = None) -> RevRe
         covariance_radius_um=shell_r[: int(math.ceil(max_lag_um / bin_um))],
         covariance_rho=shell_rho[: int(math.ceil(max_lag_um / bin_um))],
         notes=tuple(notes))
+
+
+def _check_stationarity(rows, p, notes):
+    """Note when the windows' mean porosity departs from the bulk porosity.
+
+    Windows must lie wholly inside the envelope, so the larger ones sample only the core. In a
+    graded piece (a dense skin around a porous core) their porosity then differs from the bulk
+    p, the squared deviations from p are inflated by that offset, and A3, the recommended width
+    and every sampling uncertainty come out too large. The law assumes a stationary structure;
+    this check flags where it does not hold.
+    """
+    for row in rows:
+        n, sd = row["windows_used"], row["porosity_sd"]
+        if n < 10 or not math.isfinite(sd):
+            continue
+        offset = row["porosity_mean"] - p
+        if abs(offset) > max(0.01, 3 * sd / math.sqrt(n)):
+            notes.append(
+                f"not stationary: windows of {row['window_width_um']:.4g} µm (inside the "
+                f"envelope) average porosity {row['porosity_mean']:.3f} against the bulk "
+                f"{p:.3f}; the piece is graded (see profiles/depth.csv), which inflates A3 and "
+                "the recommended width: treat them as upper bounds")
+            return
 
 
 def _fit_integral_range(rows, p, v_env, spacing, corr_range, notes):

@@ -42,7 +42,8 @@ def check_destination(out: str | Path, *, force: bool, inputs: tuple[Path, ...] 
         raise InputError(f"output {out} exists and is a file", "choose another --out folder")
     if out.exists() and not force:
         raise InputError(f"result folder {out} already exists",
-                         "choose another --out folder, or add --force to replace it")
+                         "add --force to replace it (or, for analyze and batch, choose another "
+                         "--out folder)")
     return out
 
 

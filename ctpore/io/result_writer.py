@@ -33,7 +33,40 @@ def write_result(result, out, *, force: bool, argv=None) -> Path:
                                      timings_s=result.timings_s,
                                      files=result.scan.meta.get("files")))
         save_segmentation_figures(result, tmp / "figures")
+        if result.structure is not None:
+            _write_structure(tmp, result.structure, result.scan.spacing_um)
+        if result.profiles is not None:
+            from ..report.profile_plots import write_profiles
+
+            write_profiles(tmp, result.profiles, result.profiles["frame"])
     return out
+
+
+def _write_structure(folder: Path, structure, spacing_um) -> None:
+    """Thickness maps, distribution tables and figures of the structure measures."""
+    from ..measure.cells import CELL_COLUMNS, cell_table_rows
+    from ..report.figures import save_structure_figures
+    from .ome_tiff import write_ome_tiff
+    from .result_folder import write_csv_rows
+
+    write_ome_tiff(folder / "pore_thickness.ome.tif", structure.pore_thickness, spacing_um,
+                   name="pore local thickness (cell size), µm")
+    write_ome_tiff(folder / "wall_thickness.ome.tif", structure.wall_thickness, spacing_um,
+                   name="wall local thickness, µm")
+    _write_columns(folder / "thickness_distribution.csv", structure.thickness_table)
+    _write_columns(folder / "chord_lengths.csv", structure.chord_table)
+    rows = cell_table_rows(structure.cell_table)
+    write_csv_rows(folder / "cells.csv", list(CELL_COLUMNS),
+                   [[row[c] for c in CELL_COLUMNS] for row in rows])
+    save_structure_figures(structure, folder / "figures")
+
+
+def _write_columns(path: Path, table: dict) -> None:
+    from .result_folder import write_csv_rows
+
+    names = list(table)
+    columns = [list(table[n]) for n in names]
+    write_csv_rows(path, names, [list(r) for r in zip(*columns)])
 
 
 def flatten_summary(summary: dict, prefix: str = "") -> dict:

@@ -11,7 +11,7 @@ from pathlib import Path
 
 import numpy as np
 
-__all__ = ["save_segmentation_figures", "PHASE_COLOURS"]
+__all__ = ["save_segmentation_figures", "save_structure_figures", "PHASE_COLOURS"]
 
 #: Phase overlay colours (pore, solid), chosen to stay distinct for the common colour-vision
 #: deficiencies (blue / orange pair).
@@ -88,3 +88,26 @@ def save_segmentation_figures(result, folder: Path) -> list[Path]:
     paths.append(folder / "slices.png")
     _save(fig, paths[-1])
     return paths
+
+
+def save_structure_figures(structure, folder: Path) -> list[Path]:
+    """Save thickness_distributions.png: volume-weighted pore and wall thickness."""
+    t = structure.thickness_table
+    fig = _figure(6.4, 3.6)
+    ax = fig.add_subplot()
+    edges = np.append(t["bin_lower_um"], t["bin_upper_um"][-1:]) if len(t["bin_lower_um"]) \
+        else np.array([0.0, 1.0])
+    for key, label, colour in (("pore_volume_fraction", "pores (cell size)", PHASE_COLOURS["pore"]),
+                               ("wall_volume_fraction", "walls", PHASE_COLOURS["solid"])):
+        values = t[key] if len(t[key]) else np.zeros(1)
+        ax.stairs(values, edges, label=label, color=colour, linewidth=1.5)
+    s = structure.summary
+    ax.set_title(f"local thickness: pores D50 {s['pore_thickness_d50_um']:.0f} µm, "
+                 f"walls D50 {s['wall_thickness_d50_um']:.0f} µm", fontsize=9)
+    ax.set_xlabel("local thickness (µm)")
+    ax.set_ylabel("volume fraction per bin")
+    ax.legend(fontsize=8)
+    fig.tight_layout()
+    path = Path(folder) / "thickness_distributions.png"
+    _save(fig, path)
+    return [path]
