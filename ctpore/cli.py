@@ -99,6 +99,10 @@ def _build_parser() -> argparse.ArgumentParser:
     b.add_argument("--force", action="store_true", help="recompute every piece")
     b.add_argument("--quiet", action="store_true", help="no progress lines")
 
+    from .compare.command import add_compare_parser
+
+    add_compare_parser(sub)
+
     r = sub.add_parser("recipe", help="print the default recipe (all keys, documented in "
                        "docs/recipe.md) or check one")
     r.add_argument("--check", metavar="TOML", help="validate a recipe file and print it in full")
@@ -122,6 +126,10 @@ def main(argv: list[str] | None = None) -> int:
             from .result_commands import run_result_command
 
             return run_result_command(args)
+        if args.command == "compare":
+            from .compare.command import run_compare
+
+            return run_compare(args)
         if args.command == "batch":
             return _batch(args, quiet)
         if args.command == "recipe":
