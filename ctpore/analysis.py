@@ -21,6 +21,7 @@ SUMMARY_KEYS = (
     "envelope_volume_mm3", "solid_volume_mm3", "pore_volume_mm3",
     "open_pore_volume_mm3", "closed_pore_volume_mm3", "closed_pore_count",
     "spacing_um", "shape_voxels", "threshold", "envelope", "derived", "warnings", "input",
+    "porosity_partial_volume", "partial_volume",
 )
 
 
@@ -119,6 +120,7 @@ def analyze(stack, *, spacing_um=None, recipe=None, out=None, force: bool = Fals
     with progress.step("porosity"):
         measured = porosity(seg.phases, spacing_um=scan.spacing_um)
         derived = derived_quantities(measured, recipe.sample)
+        measured.update(_partial_volume(seg, scan.spacing_um, recipe))
     summary = _summary(scan, recipe, seg, measured, derived)
     structure = None
     if recipe.structure.enabled:
@@ -173,6 +175,20 @@ def _check_contrast(grey, source):
                          "check that the file is the reconstructed stack and not an empty export")
 
 
+def _partial_volume(seg, spacing_um, recipe) -> dict:
+    """Threshold-free porosity from the mean grey value (linear mixing), with its estimates."""
+    from .segment.partial_volume import partial_volume_porosity
+
+    pv = partial_volume_porosity(seg.grey, seg.envelope, choice=seg.threshold,
+                                 spacing_um=spacing_um,
+                                 solid_is_bright=recipe.threshold.solid_is_bright)
+    keys = ("porosity_partial_volume", "porosity_partial_volume_uncertainty", "gas_grey",
+            "solid_grey", "gas_grey_spread", "solid_grey_spread", "gas_voxels_used",
+            "solid_voxels_used", "gas_grey_source", "solid_grey_source")
+    return {"partial_volume": {k: pv[k] for k in keys if k in pv},
+            "porosity_partial_volume": pv["porosity_partial_volume"]}
+
+
 def _structure_warnings(structure, spacing_um) -> list[str]:
     """Flag cell counts dominated by specks of a few voxels (noise counted as cells)."""
     table = structure.cell_table
@@ -198,6 +214,12 @@ def _summary(scan, recipe, seg, measured, derived) -> dict:
                         f"µm) differs from the file's metadata "
                         f"({scan.meta.get('metadata_spacing_um')}); the given one was used")
     warnings.extend(n for n in derived.get("notes", []) if n.startswith("inconsistent"))
+    pv = measured.get("partial_volume", {})
+    if pv.get("solid_voxels_used", 1000) < 100:
+        warnings.append(f"porosity_partial_volume rests on {pv.get('solid_voxels_used')} voxels "
+                        "of thick solid: walls are too thin to show the pure solid grey value, "
+                        "so it is uncertain (see partial_volume.porosity_partial_volume_"
+                        "uncertainty)")
     band = seg.band
     if band["porosity_high"] - band["porosity_low"] > 0.05:
         warnings.append("the porosity moves by more than 0.05 within the threshold band: "
