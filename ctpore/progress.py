@@ -6,7 +6,7 @@ import sys
 import time
 from contextlib import contextmanager
 
-__all__ = ["Progress"]
+__all__ = ["Progress", "no_step"]
 
 
 class Progress:
@@ -44,3 +44,9 @@ class Progress:
         if not self.quiet:
             print(f"{self.label}: [{self.done}/{self.total}] {name} done in {elapsed:.1f} s",
                   file=self.stream, flush=True)
+
+
+@contextmanager
+def no_step(name: str):
+    """A step reporter that reports nothing (for functions called without progress)."""
+    yield

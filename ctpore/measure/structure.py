@@ -13,6 +13,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from ..progress import no_step
 from ..recipe import StructureSection
 from ..spacing import as_spacing_um
 from .anisotropy import mil_anisotropy
@@ -67,7 +68,7 @@ def structure_measures(phases, grey, *, threshold_value: float, spacing_um,
     """
     section = section or StructureSection()
     spacing = as_spacing_um(spacing_um)
-    step = step or _no_step
+    step = step or no_step
     pore = phases == 1
     solid = phases == 2
     envelope = phases > 0
@@ -132,15 +133,3 @@ def _pad(values, n):
     out = np.zeros(n)
     out[: len(values)] = values
     return out
-
-
-class _NoStep:
-    def __enter__(self):
-        return self
-
-    def __exit__(self, *exc):
-        return False
-
-
-def _no_step(name):
-    return _NoStep()

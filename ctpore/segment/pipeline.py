@@ -10,6 +10,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from ..progress import no_step
 from ..recipe import Recipe
 from ..spacing import as_spacing_um
 from .clean import clean_solid
@@ -63,7 +64,7 @@ def segment(volume, *, spacing_um, recipe: Recipe | None = None, progress=None) 
     """
     recipe = recipe or Recipe()
     spacing = as_spacing_um(spacing_um)
-    step = progress.step if progress is not None else _no_step
+    step = progress.step if progress is not None else no_step
 
     with step(f"denoise ({recipe.denoise.method})"):
         # Without denoising the raw values go straight to the threshold, so integer stacks
@@ -106,15 +107,3 @@ def sensitivity_band(grey, envelope, choice: ThresholdChoice, *, spacing_um, rec
 def _solid_at(grey, value, spacing, recipe):
     solid = solid_mask(grey, value, solid_is_bright=recipe.threshold.solid_is_bright)
     return clean_solid(solid, spacing_um=spacing, section=recipe.clean)
-
-
-class _NoStep:
-    def __enter__(self):
-        return self
-
-    def __exit__(self, *exc):
-        return False
-
-
-def _no_step(name):
-    return _NoStep()
