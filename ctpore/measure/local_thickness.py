@@ -7,28 +7,36 @@ honoured), every phase voxel is the centre of the ball ``|x - c|² <= D(c)²`` a
 
     LT(x) = 2 · max{ D(c) : c in the phase, |x - c| <= D(c) },   0 outside the phase.
 
+Balls are closed, with a relative margin of 1e-6 on ``D²`` so that voxel centres lying exactly on
+a sphere count as inside whatever the float32 rounding of ``D``.
+
 This module computes that maximum exactly — the same numbers as painting a ball at every phase
-voxel — without painting every ball. Two exact reductions make it fast:
+voxel — without painting every ball. Three exact reductions make it fast:
 
 1. *Contained balls are skipped.* Ball ``c`` lies inside the ball of a 26-neighbour ``n = c + u``
    when every lattice point of ball ``c``, shifted by ``-u``, lies in ball ``n``. The largest
    value of ``|p - u|²`` over the lattice points ``p`` of a ball of radius² ``K`` is tabulated
    once per distinct distance value (seven offset classes), so the test is one table look-up.
-2. *Only the part of a ball not covered by larger neighbouring balls is painted.* If a
-   neighbour ``n = c + u`` has ``D(n) >= D(c)`` (ties broken by raster order), every point ``p``
-   of ball ``c`` with ``p·u >= (D(c)² - D(n)² + |u|²) / 2`` lies in ball ``n``, whose value is at
-   least as large and is accounted for by ``n`` (by induction on the radius). The points left
-   form a thin cap next to where ball ``c`` touches the background; it is enumerated row by row
-   with the x-interval of each row computed from the sphere and the half-space bounds.
+2. *Points left to a neighbour are not painted.* If a neighbour ``n = c + u`` has a larger ball,
+   every point ``p`` of ball ``c`` with ``p·u >= g = (D(c)² - D(n)² + |u|²) / 2`` (beyond the
+   radical plane of the two spheres) lies in ball ``n``, whose value is larger. If the balls are
+   equal, the points with ``p·u > |u|²/2`` are nearer to ``n`` and left to it. By induction on
+   the radius, and for equal radii on the distance to the point, every point skipped by ``c``
+   ends with a value of at least ``2·D(c)``. What is left lies in a polyhedral cap next to where
+   ball ``c`` touches the background; it is enumerated row by row (x-intervals from the sphere
+   and the half-space bounds).
+3. *The larger neighbouring ball reaching farthest is cut out exactly*, row by row, which skips
+   most rows of the cap and leaves a thin shell to write.
 
-Every voxel painted by ball ``c`` lies in ball ``c`` and receives ``2·D(c)``, and every voxel of
-ball ``c`` skipped holds at least that value in the end, so the result equals the definition.
+Every voxel painted by ball ``c`` lies in ball ``c`` and receives ``2·D(c)`` (by maximum), so
+the result equals the definition; a brute-force check in the tests agrees at every voxel.
+
 Memory: the phase mask (1 byte per voxel, the caller's), the distance map while it is indexed
 (4 bytes), an index of distinct distances (2 bytes; 4 bytes when more than 65 535 distinct
 distances occur) and the float32 result (4 bytes, allocated after the distance map is freed):
-about 7 bytes per voxel at peak. Painting runs in parallel over z-slabs in two rounds (even
-slabs, then odd ones), each slab at least twice the largest ball radius thick, so no two
-threads ever write the same voxel.
+about 7 bytes per voxel at peak. Painting runs in threads over z-slabs in two rounds (even
+slabs, then odd ones), each slab at least twice the largest ball radius thick, so no two threads
+ever write the same voxel and the result does not depend on the number of threads.
 
 References
 ----------
@@ -41,6 +49,7 @@ from __future__ import annotations
 
 import math
 import os
+import threading
 
 import numpy as np
 
@@ -49,10 +58,9 @@ from ..spacing import as_spacing_um
 
 __all__ = ["local_thickness", "thickness_statistics", "thickness_histogram"]
 
-# Ball membership is |x - c|² <= D(c)²·(1 + _TOL): a closed ball, with a relative margin far
-# above the float32 rounding of D (~1e-7) and far below the gap between distinct squared
-# lattice distances, so voxel centres lying exactly on the sphere count as inside whatever the
-# rounding of D.
+# Ball membership is |x - c|² <= D(c)²·(1 + _TOL): a closed ball, with a relative margin well
+# above the float32 rounding of D (~1e-7), so voxel centres lying exactly on the sphere count as
+# inside whatever the rounding of D.
 _TOL = 1e-6
 # Work budget (rows scanned) for the table of contained-ball tests; distances beyond it are
 # simply never tested for containment, which costs time, not exactness.
@@ -61,10 +69,11 @@ _TABLE_ROW_BUDGET = 3e7
 _ROW_TABLE_ENTRIES = 4_000_000
 
 _KERNELS: dict = {}
+_KERNELS_LOCK = threading.Lock()
 
 
 def local_thickness(mask, spacing_um, *, parallel=None) -> np.ndarray:
-    """Local thickness map of a phase: the diameter, in µm, of the largest ball containing each voxel.
+    """Local thickness of a phase: per voxel, the diameter (µm) of the largest ball containing it.
 
     Exact on the voxel grid: at each phase voxel ``x`` the result is ``2·max D(c)`` over the phase
     voxels ``c`` with ``|x − c| <= D(c)``, where ``D`` is the Euclidean distance transform of the
@@ -78,8 +87,9 @@ def local_thickness(mask, spacing_um, *, parallel=None) -> np.ndarray:
       structure cut by the field of view therefore reads as thick as the background inside the
       image allows, never thinner because of the cut.
     * Diameters are twice the centre-to-background-centre distance, so a plate ``t`` voxels thick
-      reads ``t`` voxels for even ``t`` and ``t + 1`` for odd ``t``; a voxelised ball reads about
-      one voxel more than its nominal diameter.
+      reads ``t`` voxels for even ``t`` and ``t + 1`` for odd ``t``; a voxelised ball reads a
+      little more than its nominal diameter (the nearest voxel centre outside it is a little
+      farther than its radius).
     * Balls are closed: a voxel centre exactly on a sphere counts as inside.
 
     Parameters
@@ -132,7 +142,7 @@ def local_thickness(mask, spacing_um, *, parallel=None) -> np.ndarray:
     import edt
 
     distance = edt.edt(mask, anisotropy=spacing, black_border=False, parallel=threads)
-    index, values = _index_distances(distance, min(spacing), threads)
+    index, values = _index_distances(distance, threads)
     del distance
     return _paint(index, values, spacing, threads)
 
@@ -279,7 +289,7 @@ def _phase_values(thickness_map, mask) -> np.ndarray:
 
 # --- distinct distances ---------------------------------------------------------------------
 
-def _index_distances(distance: np.ndarray, min_spacing: float, threads: int):
+def _index_distances(distance: np.ndarray, threads: int):
     """Replace the float32 distance map by an index into its sorted distinct values.
 
     Positive float32 numbers sort like their bit patterns, so a bitmap over the patterns between
@@ -288,9 +298,7 @@ def _index_distances(distance: np.ndarray, min_spacing: float, threads: int):
     """
     k = _kernels()
     bits = distance.view(np.uint32)
-    # No distance is shorter than the smallest voxel edge; a 1e-3 margin covers rounding.
-    lo = int(np.array(min_spacing * (1 - 1e-3), dtype=np.float32).view(np.uint32))
-    hi = int(bits.max())
+    lo, hi = k["positive_range"](bits.reshape(-1))
     bitmap = np.zeros((hi - lo) // 64 + 1, dtype=np.uint64)
     k["mark_bits"](bits.reshape(-1), lo, bitmap)
     prefix = k["prefix_counts"](bitmap)
@@ -455,14 +463,31 @@ _pc = None
 
 
 def _kernels() -> dict:
-    """Compile (or load from numba's cache) the kernels on first use; numba is imported here only."""
+    """Compile (or load from numba's disk cache) the kernels on first use; numba is imported
+    here only, so importing this module stays light."""
+    with _KERNELS_LOCK:
+        if not _KERNELS:
+            _compile_kernels()
+    return _KERNELS
+
+
+def _compile_kernels() -> None:
     global _hw, _pc
-    if _KERNELS:
-        return _KERNELS
     from numba import njit
 
-    _hw = njit(cache=True, nogil=True, inline="always")(_halfwidth)
-    _pc = njit(cache=True, nogil=True, inline="always")(_popcount)
+    _hw = njit(cache=True, nogil=True)(_halfwidth)
+    _pc = njit(cache=True, nogil=True)(_popcount)
+
+    @njit(cache=True, nogil=True)
+    def positive_range(bits):
+        lo = np.int64(0xFFFFFFFF)
+        hi = np.int64(0)
+        for i in range(bits.size):
+            b = np.int64(bits[i])
+            if b != 0:
+                lo = min(lo, b)
+                hi = max(hi, b)
+        return lo, hi
 
     @njit(cache=True, nogil=True)
     def mark_bits(bits, lo, bitmap):
@@ -726,7 +751,7 @@ def _kernels() -> dict:
                     else:
                         out[z, y, x] = 2.0 * out[z, y, x]
 
-    _KERNELS.update(mark_bits=mark_bits, prefix_counts=prefix_counts, rank_bits=rank_bits,
+    _KERNELS.update(positive_range=positive_range, mark_bits=mark_bits,
+                    prefix_counts=prefix_counts, rank_bits=rank_bits,
                     containment_table=containment_table, row_extents=row_extents,
                     fill_rows=fill_rows, paint_slab=paint_slab, finish=finish)
-    return _KERNELS
