@@ -32,7 +32,7 @@ Every voxel painted by ball ``c`` lies in ball ``c`` and receives ``2·D(c)`` (b
 the result equals the definition; a brute-force check in the tests agrees at every voxel.
 
 Memory: the phase mask (1 byte per voxel, the caller's), the distance map while it is indexed
-(4 bytes), an index of distinct distances (2 bytes; 4 bytes when more than 65 535 distinct
+(4 bytes), an index of distinct distances (2 bytes; 4 bytes when more than 65 534 distinct
 distances occur) and the float32 result (4 bytes, allocated after the distance map is freed):
 about 7 bytes per voxel at peak. Painting runs in threads over z-slabs in two rounds (even
 slabs, then odd ones), each slab at least twice the largest ball radius thick, so no two threads
