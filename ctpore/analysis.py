@@ -110,7 +110,9 @@ def analyze(stack, *, spacing_um=None, recipe=None, out=None, force: bool = Fals
         check_destination(out, force=force, inputs=inputs)
 
     progress = Progress(6 + (3 if recipe.structure.enabled else 0)
-                        + (1 if recipe.profiles.enabled else 0), quiet=quiet)
+                        + (1 if recipe.profiles.enabled else 0)
+                        + (1 if recipe.corrections.cupping else 0)
+                        + (1 if recipe.corrections.uncertainty else 0), quiet=quiet)
     with progress.step("read stack"):
         scan = _as_scan(stack, spacing_um, read_stack)
         grey = scan.load()
@@ -121,6 +123,16 @@ def analyze(stack, *, spacing_um=None, recipe=None, out=None, force: bool = Fals
         measured = porosity(seg.phases, spacing_um=scan.spacing_um)
         derived = derived_quantities(measured, recipe.sample)
         measured.update(_partial_volume(seg, scan.spacing_um, recipe))
+    if recipe.corrections.uncertainty:
+        with progress.step("segmentation uncertainty (threshold ± delta, two envelopes)"):
+            measured["uncertainty"] = segmentation_uncertainty(
+                seg, spacing_um=scan.spacing_um, recipe=recipe,
+                wall_thickness=recipe.structure.enabled)
+    if seg.cupping is not None:
+        measured["cupping"] = {k: seg.cupping[k] for k in
+                               ("trend_coefficients", "reference_grey", "gas_grey")}
+        measured["cupping"]["profile_before"] = _columns(seg.cupping["profile_before"])
+        measured["cupping"]["profile_after"] = _columns(seg.cupping["profile_after"])
     summary = _summary(scan, recipe, seg, measured, derived)
     structure = None
     if recipe.structure.enabled:
@@ -173,6 +185,52 @@ def _check_contrast(grey, source):
     if lo == hi:
         raise InputError(f"{source}: every voxel has the grey value {lo}; no threshold exists",
                          "check that the file is the reconstructed stack and not an empty export")
+
+
+def segmentation_uncertainty(seg, *, spacing_um, recipe, wall_thickness=True) -> dict:
+    """Ranges of porosity, open share and wall-thickness D50 over a small ensemble.
+
+    Members: the threshold moved by −delta, 0 and +delta, each with the "closing" and the
+    "rolling_sphere" envelope (same radius): the two choices labs disagree on most. Returns the
+    min and max of each quantity over the six members (nominal included) and the member list.
+    """
+    from .measure.porosity import porosity as measure_porosity
+    from .segment.envelope import envelope as make_envelope
+    from .segment.phases import make_phases
+    from .segment.pipeline import solid_at
+
+    t = seg.threshold
+    members = []
+    for shift in (-t.delta, 0.0, t.delta):
+        solid = solid_at(seg.grey, t.value + shift, spacing_um, recipe, t)
+        for method in ("closing", "rolling_sphere"):
+            section = recipe.envelope.__class__(method=method, radius_um=recipe.envelope.radius_um,
+                                                hull_axis=recipe.envelope.hull_axis)
+            env = make_envelope(solid, spacing_um=spacing_um, section=section)
+            phases = make_phases(solid & env, env)
+            p = measure_porosity(phases, spacing_um=spacing_um)
+            member = {"threshold_value": t.value + shift, "envelope_method": method,
+                      "porosity_gas": p["porosity_gas"],
+                      "open_share": p["porosity_open"] / p["porosity_gas"]
+                      if p["porosity_gas"] > 0 else float("nan")}
+            if wall_thickness:
+                from .measure.local_thickness import local_thickness, thickness_statistics
+
+                wall = phases == 2
+                member["wall_thickness_d50_um"] = thickness_statistics(
+                    local_thickness(wall, spacing_um), wall)["d50_um"]
+            members.append(member)
+    out = {"members": members}
+    for key in ("porosity_gas", "open_share", "wall_thickness_d50_um"):
+        values = [m[key] for m in members if key in m]
+        if values:
+            out[f"{key}_min"] = float(np.nanmin(values))
+            out[f"{key}_max"] = float(np.nanmax(values))
+    return out
+
+
+def _columns(table: dict) -> dict:
+    return {k: np.asarray(v).tolist() for k, v in table.items()}
 
 
 def _partial_volume(seg, spacing_um, recipe) -> dict:

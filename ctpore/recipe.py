@@ -29,6 +29,7 @@ __all__ = [
     "CoarsenSection",
     "RevSection",
     "BatchSection",
+    "CorrectionsSection",
     "load_recipe",
 ]
 
@@ -319,6 +320,43 @@ class BatchSection:
                              "0.05 is the default")
 
 
+THIN_WALL_METHODS = ("none", "hysteresis", "local")
+
+
+@dataclass(frozen=True)
+class CorrectionsSection:
+    """Artefact corrections and thin-wall options of the segmentation (all off by default).
+
+    rings : reduce ring artefacts on axial (z) slices before thresholding (polar filtering).
+    cupping : remove the solid's grey-value trend with depth (beam hardening) and re-threshold.
+    cupping_degree : degree of the polynomial trend in depth.
+    thin_walls : "none" (global threshold), "hysteresis" (voxels above ``low`` connected to
+        voxels above the threshold; low = gas peak + ``hysteresis_low_fraction`` × contrast) or
+        "local" (local-mean threshold in a ``local_window_um`` box, between the low value and
+        the global threshold).
+    uncertainty : recompute porosity, open share and wall-thickness D50 for the threshold ± delta
+        and both ball envelope methods, and report their ranges (six extra segmentations: off
+        by default because it multiplies the cost of a run).
+    """
+
+    rings: bool = False
+    cupping: bool = False
+    cupping_degree: int = 2
+    thin_walls: str = "none"
+    hysteresis_low_fraction: float = 0.3
+    local_window_um: float = 0.0
+    uncertainty: bool = False
+
+    def check(self):
+        _choice("corrections.thin_walls", self.thin_walls, THIN_WALL_METHODS)
+        if not 0 < self.hysteresis_low_fraction < 1:
+            raise InputError("corrections.hysteresis_low_fraction must be in (0, 1)",
+                             "0.3 suits one-voxel walls blurred by about one voxel")
+        _nonneg("corrections.local_window_um", self.local_window_um)
+        if not 1 <= self.cupping_degree <= 4:
+            raise InputError("corrections.cupping_degree must be 1 to 4", "2 is the default")
+
+
 _SECTIONS = {
     "denoise": DenoiseSection,
     "threshold": ThresholdSection,
@@ -330,6 +368,7 @@ _SECTIONS = {
     "coarsen": CoarsenSection,
     "rev": RevSection,
     "batch": BatchSection,
+    "corrections": CorrectionsSection,
 }
 
 
@@ -347,6 +386,7 @@ class Recipe:
     coarsen: CoarsenSection = field(default_factory=CoarsenSection)
     rev: RevSection = field(default_factory=RevSection)
     batch: BatchSection = field(default_factory=BatchSection)
+    corrections: CorrectionsSection = field(default_factory=CorrectionsSection)
 
     def __post_init__(self):
         for name in _SECTIONS:

@@ -19,7 +19,7 @@ from .envelope import envelope as make_envelope
 from .phases import make_phases
 from .threshold import ThresholdChoice, solid_mask, threshold_value
 
-__all__ = ["Segmentation", "segment", "sensitivity_band"]
+__all__ = ["Segmentation", "segment", "sensitivity_band", "solid_at"]
 
 
 @dataclass
@@ -46,6 +46,7 @@ class Segmentation:
     threshold: ThresholdChoice
     band: dict
     grey: np.ndarray
+    cupping: dict | None = None  # fitted trend and profiles before/after, when corrected
 
 
 def segment(volume, *, spacing_um, recipe: Recipe | None = None, progress=None) -> Segmentation:
@@ -74,15 +75,31 @@ def segment(volume, *, spacing_um, recipe: Recipe | None = None, progress=None) 
             grey = volume
         else:
             grey = denoise(volume, spacing_um=spacing, section=recipe.denoise)
+        if recipe.corrections.rings:
+            from .rings import reduce_rings
+
+            grey = reduce_rings(grey)
     with step(f"threshold ({recipe.threshold.method})"):
         choice = threshold_value(grey, section=recipe.threshold)
-        solid = _solid_at(grey, choice.value, spacing, recipe)
+        solid = solid_at(grey, choice.value, spacing, recipe, choice)
     with step(f"envelope ({recipe.envelope.method})"):
         env = make_envelope(solid, spacing_um=spacing, section=recipe.envelope)
-        phases = make_phases(solid, env)
+    cupping = None
+    if recipe.corrections.cupping:
+        from .cupping import correct_cupping
+
+        with step("cupping correction and re-threshold"):
+            cupping = correct_cupping(grey, env, solid, spacing_um=spacing,
+                                      degree=recipe.corrections.cupping_degree)
+            grey = cupping.pop("grey")
+            choice = threshold_value(grey, section=recipe.threshold)
+            solid = solid_at(grey, choice.value, spacing, recipe, choice)
+            env = make_envelope(solid, spacing_um=spacing, section=recipe.envelope)
+    phases = make_phases(solid, env)
     with step("threshold sensitivity band"):
         band = sensitivity_band(grey, env, choice, spacing_um=spacing, recipe=recipe)
-    return Segmentation(phases=phases, envelope=env, threshold=choice, band=band, grey=grey)
+    return Segmentation(phases=phases, envelope=env, threshold=choice, band=band, grey=grey,
+                        cupping=cupping)
 
 
 def sensitivity_band(grey, envelope, choice: ThresholdChoice, *, spacing_um, recipe: Recipe) -> dict:
@@ -96,7 +113,7 @@ def sensitivity_band(grey, envelope, choice: ThresholdChoice, *, spacing_um, rec
     values = {}
     for sign in (-1.0, 1.0):
         t = choice.value + sign * choice.delta
-        solid = _solid_at(grey, t, spacing_um, recipe) & envelope
+        solid = solid_at(grey, t, spacing_um, recipe, choice) & envelope
         values[sign] = (env_count - int(np.count_nonzero(solid))) / env_count
     low, high = sorted(values.values())
     return {"porosity_low": float(low), "porosity_high": float(high),
@@ -104,6 +121,23 @@ def sensitivity_band(grey, envelope, choice: ThresholdChoice, *, spacing_um, rec
             "value_high": float(choice.value + choice.delta)}
 
 
-def _solid_at(grey, value, spacing, recipe):
-    solid = solid_mask(grey, value, solid_is_bright=recipe.threshold.solid_is_bright)
+def solid_at(grey, value, spacing, recipe, choice):
+    """Solid at threshold ``value`` with the recipe's thin-wall method, then cleaned."""
+    c = recipe.corrections
+    bright = recipe.threshold.solid_is_bright
+    if c.thin_walls == "none":
+        solid = solid_mask(grey, value, solid_is_bright=bright)
+    else:
+        from .thin_walls import hysteresis_solid, local_threshold_solid
+
+        sign = 1.0 if bright else -1.0
+        low = choice.gas_peak + sign * c.hysteresis_low_fraction * abs(
+            choice.solid_peak - choice.gas_peak)
+        if c.thin_walls == "hysteresis":
+            solid = hysteresis_solid(grey, low=low, high=value, solid_is_bright=bright)
+        else:
+            window = c.local_window_um or 5 * min(spacing)
+            solid = local_threshold_solid(grey, window_um=window, spacing_um=spacing,
+                                          floor=low, ceiling=value, solid_is_bright=bright)
     return clean_solid(solid, spacing_um=spacing, section=recipe.clean)
+
