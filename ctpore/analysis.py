@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import dataclasses
+
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -204,8 +206,7 @@ def segmentation_uncertainty(seg, *, spacing_um, recipe, wall_thickness=True) ->
     for shift in (-t.delta, 0.0, t.delta):
         solid = solid_at(seg.grey, t.value + shift, spacing_um, recipe, t)
         for method in ("closing", "rolling_sphere"):
-            section = recipe.envelope.__class__(method=method, radius_um=recipe.envelope.radius_um,
-                                                hull_axis=recipe.envelope.hull_axis)
+            section = dataclasses.replace(recipe.envelope, method=method)
             env = make_envelope(solid, spacing_um=spacing_um, section=section)
             phases = make_phases(solid & env, env)
             p = measure_porosity(phases, spacing_um=spacing_um)

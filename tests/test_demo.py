@@ -20,6 +20,7 @@ def test_demo_runs_whole_and_tracks_the_truth(tmp_path):
         # hundredths (Verbeek & van Vliet 1994, IEEE PAMI 16:726); the demo shows it honestly,
         # and the measurement must still be near the truth.
         assert abs(r["porosity_gas"] - r["porosity_gas_true"]) < 0.15
+        # envelope within 8 % of the body's volume (common practice, no source)
         assert abs(r["envelope_volume_mm3"] - r["envelope_volume_mm3_true"]) \
             < 0.08 * r["envelope_volume_mm3_true"]
         assert r["porosity_open"] + r["porosity_closed"] == \
