@@ -359,14 +359,15 @@ def _read_summary(folder: Path) -> dict | None:
 
 
 class _Reporter:
+    """One report per finished piece: a bar on a terminal, a line per piece in a log."""
+
     def __init__(self, total, *, quiet):
-        self.total, self.quiet, self.done = total, quiet, 0
+        from ..progress import Progress
+
+        self.progress = Progress(total, quiet=quiet, label="ctpore batch")
 
     def line(self, outcome: PieceOutcome, row):
-        self.done += 1
-        if self.quiet:
-            return
-        head = f"ctpore batch: [{self.done}/{self.total}] {outcome.sample_id} ({outcome.batch})"
+        head = f"{outcome.sample_id} ({outcome.batch})"
         if outcome.status == "ok":
             phi = (outcome.summary or {}).get("porosity_gas")
             phi_text = f", porosity_gas {phi:.4f}" if isinstance(phi, (int, float)) else ""
@@ -375,7 +376,9 @@ class _Reporter:
             msg = "skipped, result exists"
         else:
             msg = f"FAILED: {outcome.error.splitlines()[0] if outcome.error else ''}"
-        print(f"{head}: {msg}", file=sys.stderr, flush=True)
+        self.progress.advance(f"{head}: {msg}")
+        if outcome.status not in ("ok", "skipped-existing") and self.progress.bar:
+            print(f"ctpore batch: {head}: {msg}", file=sys.stderr, flush=True)
 
 
 # ----------------------------------------------------------------------------------------------
