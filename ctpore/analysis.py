@@ -2,8 +2,6 @@
 
 from __future__ import annotations
 
-import dataclasses
-
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -14,6 +12,7 @@ from .errors import InputError
 from .progress import Progress
 from .recipe import Recipe, load_recipe
 from .scan import Scan
+from .segment.uncertainty import segmentation_uncertainty
 
 __all__ = ["AnalysisResult", "analyze", "SUMMARY_KEYS", "STRUCTURE_KEYS"]
 
@@ -126,10 +125,11 @@ def analyze(stack, *, spacing_um=None, recipe=None, out=None, force: bool = Fals
         derived = derived_quantities(measured, recipe.sample)
         measured.update(_partial_volume(seg, scan.spacing_um, recipe))
     if recipe.corrections.uncertainty:
-        with progress.step("segmentation uncertainty (threshold ± delta, two envelopes)"):
+        with progress.step("segmentation uncertainty (threshold span, two envelopes)"):
             measured["uncertainty"] = segmentation_uncertainty(
                 seg, spacing_um=scan.spacing_um, recipe=recipe,
-                wall_thickness=recipe.structure.enabled)
+                wall_thickness=recipe.structure.enabled,
+                partial_volume=measured["partial_volume"])
     if seg.cupping is not None:
         measured["cupping"] = {k: seg.cupping[k] for k in
                                ("trend_coefficients", "reference_grey", "gas_grey")}
@@ -187,47 +187,6 @@ def _check_contrast(grey, source):
     if lo == hi:
         raise InputError(f"{source}: every voxel has the grey value {lo}; no threshold exists",
                          "check that the file is the reconstructed stack and not an empty export")
-
-
-def segmentation_uncertainty(seg, *, spacing_um, recipe, wall_thickness=True) -> dict:
-    """Ranges of porosity, open share and wall-thickness D50 over a small ensemble.
-
-    Members: the threshold moved by −delta, 0 and +delta, each with the "closing" and the
-    "rolling_sphere" envelope (same radius): the two choices labs disagree on most. Returns the
-    min and max of each quantity over the six members (nominal included) and the member list.
-    """
-    from .measure.porosity import porosity as measure_porosity
-    from .segment.envelope import envelope as make_envelope
-    from .segment.phases import make_phases
-    from .segment.pipeline import solid_at
-
-    t = seg.threshold
-    members = []
-    for shift in (-t.delta, 0.0, t.delta):
-        solid = solid_at(seg.grey, t.value + shift, spacing_um, recipe, t)
-        for method in ("closing", "rolling_sphere"):
-            section = dataclasses.replace(recipe.envelope, method=method)
-            env = make_envelope(solid, spacing_um=spacing_um, section=section)
-            phases = make_phases(solid & env, env)
-            p = measure_porosity(phases, spacing_um=spacing_um)
-            member = {"threshold_value": t.value + shift, "envelope_method": method,
-                      "porosity_gas": p["porosity_gas"],
-                      "open_share": p["porosity_open"] / p["porosity_gas"]
-                      if p["porosity_gas"] > 0 else float("nan")}
-            if wall_thickness:
-                from .measure.local_thickness import local_thickness, thickness_statistics
-
-                wall = phases == 2
-                member["wall_thickness_d50_um"] = thickness_statistics(
-                    local_thickness(wall, spacing_um), wall)["d50_um"]
-            members.append(member)
-    out = {"members": members}
-    for key in ("porosity_gas", "open_share", "wall_thickness_d50_um"):
-        values = [m[key] for m in members if key in m]
-        if values:
-            out[f"{key}_min"] = float(np.nanmin(values))
-            out[f"{key}_max"] = float(np.nanmax(values))
-    return out
 
 
 def _columns(table: dict) -> dict:

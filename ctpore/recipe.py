@@ -334,9 +334,11 @@ class CorrectionsSection:
         voxels above the threshold; low = gas peak + ``hysteresis_low_fraction`` × contrast) or
         "local" (local-mean threshold in a ``local_window_um`` box, between the low value and
         the global threshold).
-    uncertainty : recompute porosity, open share and wall-thickness D50 for the threshold ± delta
-        and both ball envelope methods, and report their ranges (six extra segmentations: off
-        by default because it multiplies the cost of a run).
+    uncertainty : recompute porosity, open share and wall-thickness D50 over six segmentations
+        (three thresholds spanning the nominal, the pure-phase midpoint and the
+        volume-preserving threshold, × both ball envelope methods), with the partial-volume
+        porosity ± 2u as a seventh porosity member; report their ranges (off by default
+        because it multiplies the cost of a run; see ctpore.segment.uncertainty).
     """
 
     rings: bool = False
