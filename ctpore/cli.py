@@ -1,4 +1,4 @@
-"""Command line: ``ctpore analyze``, ``ctpore demo``, ``ctpore recipe``.
+"""Command line: ``ctpore analyze``, ``demo``, ``batch``, ``convert``, ``compare``, ... .
 
 A thin shell over the Python API. Exit status 0 on success, 2 on bad input or usage with a
 one-line reason naming the file and the fix; nothing is written on failure.
@@ -96,12 +96,18 @@ def _build_parser() -> argparse.ArgumentParser:
                    "and file give none")
     b.add_argument("--batch-column", default="batch", metavar="NAME", help="manifest column "
                    "that names the batch (default 'batch')")
+    b.add_argument("--scheduler", metavar="ADDRESS", help="run the pieces on a dask.distributed "
+                   "cluster (e.g. tcp://10.0.0.5:8786) instead of local worker processes")
     b.add_argument("--force", action="store_true", help="recompute every piece")
     b.add_argument("--quiet", action="store_true", help="no progress lines")
 
     from .compare.command import add_compare_parser
 
     add_compare_parser(sub)
+
+    from .io.convert_command import add_convert_parser
+
+    add_convert_parser(sub)
 
     r = sub.add_parser("recipe", help="print the default recipe (all keys, documented in "
                        "docs/recipe.md) or check one")
@@ -130,6 +136,10 @@ def main(argv: list[str] | None = None) -> int:
             from .compare.command import run_compare
 
             return run_compare(args)
+        if args.command == "convert":
+            from .io.convert_command import run_convert
+
+            return run_convert(args)
         if args.command == "batch":
             return _batch(args, quiet)
         if args.command == "recipe":
@@ -176,8 +186,14 @@ def _batch(args, quiet) -> int:
     if args.workers < 1:
         raise InputError(f"--workers must be at least 1; got {args.workers}", "use e.g. 2")
     rows = read_manifest(args.manifest, spacing_um=args.spacing, batch_column=args.batch_column)
-    run = run_batch(rows, recipe=recipe, out_dir=args.out, workers=args.workers,
-                    force=args.force, quiet=quiet)
+    if args.scheduler:
+        from .batch.distributed import run_batch_distributed
+
+        run = run_batch_distributed(rows, recipe=recipe, out_dir=args.out, client=args.scheduler,
+                                    force=args.force, quiet=quiet)
+    else:
+        run = run_batch(rows, recipe=recipe, out_dir=args.out, workers=args.workers,
+                        force=args.force, quiet=quiet)
     b = recipe.batch
     report = batch_report(run.table, reference=b.reference or None, margins=dict(b.margins),
                           measures=b.measures, alpha=b.alpha,

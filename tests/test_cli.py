@@ -143,3 +143,24 @@ def test_console_entry_point_runs():
     out = subprocess.run([sys.executable, "-m", "ctpore", "--version"], capture_output=True,
                          text=True, check=True)
     assert out.stdout.startswith("ctpore ")
+
+
+def test_convert_to_ome_zarr_then_analyze_it_gives_the_tiff_numbers(tmp_path, capsys):
+    pytest.importorskip("ome_zarr")
+    stack = tmp_path / "piece.ome.tif"
+    _write_ome(stack, _ball_stack(), spacing=(12.0, 10.0, 10.0))
+    zarr_path = tmp_path / "piece.ome.zarr"
+    code, _, err = _run(["convert", stack, zarr_path, "--quiet"], capsys)
+    assert code == 0, err
+    code, _, err = _run(["convert", stack, zarr_path, "--quiet"], capsys)
+    assert code == 2 and "--force" in err  # never overwritten without --force
+    code, out_zarr, err = _run(["analyze", zarr_path, "--out", tmp_path / "rz", "--json",
+                                "--quiet"], capsys)
+    assert code == 0, err
+    code, out_tif, err = _run(["analyze", stack, "--out", tmp_path / "rt", "--json", "--quiet"],
+                              capsys)
+    assert code == 0, err
+    a, b = json.loads(out_zarr), json.loads(out_tif)
+    for key in ("porosity_gas", "porosity_open", "porosity_closed", "envelope_volume_mm3"):
+        assert a[key] == b[key]
+    assert a["spacing_um"] == b["spacing_um"] == [12.0, 10.0, 10.0]

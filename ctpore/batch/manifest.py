@@ -328,7 +328,7 @@ def _duplicates(ids):
 
 def _stem(path: Path) -> str:
     name = path.name
-    while Path(name).suffix.lower() in _STACK_SUFFIXES + (".ome",):
+    while Path(name).suffix.lower() in _STACK_SUFFIXES + (".ome", ".zarr"):
         name = Path(name).stem
     return name
 

@@ -588,6 +588,10 @@ def read_stack(path, *, spacing_um=None) -> Scan:
     path = Path(path).expanduser()
     if not path.exists():
         raise InputError(f"{path} does not exist", "check the path and spelling")
+    from .ome_zarr import is_ome_zarr, read_ome_zarr
+
+    if is_ome_zarr(path):
+        return read_ome_zarr(path, spacing_um=spacing_um)
     if path.is_dir():
         return _read_folder(path, spacing_um)
     return _read_tiff(path, spacing_um)
