@@ -109,6 +109,10 @@ def _build_parser() -> argparse.ArgumentParser:
 
     add_convert_parser(sub)
 
+    from .report.command import add_report_parser
+
+    add_report_parser(sub)
+
     r = sub.add_parser("recipe", help="print the default recipe (all keys, documented in "
                        "docs/recipe.md) or check one")
     r.add_argument("--check", metavar="TOML", help="validate a recipe file and print it in full")
@@ -142,6 +146,10 @@ def main(argv: list[str] | None = None) -> int:
             return run_convert(args)
         if args.command == "batch":
             return _batch(args, quiet)
+        if args.command == "report":
+            from .report.command import run_report
+
+            return run_report(args)
         if args.command == "recipe":
             from .recipe import load_recipe
 
@@ -199,6 +207,9 @@ def _batch(args, quiet) -> int:
                           measures=b.measures, alpha=b.alpha,
                           control_measure=b.control_measure or None, pieces_dir=run.pieces_dir)
     write_batch_outputs(run.out_dir, report)
+    from .report.html import write_report
+
+    write_report(run.out_dir, force=True)
     _print_verdicts(report, run)
     return 0
 

@@ -12,7 +12,8 @@ def write_result(result, out, *, force: bool, argv=None) -> Path:
 
     Files: summary.json, measurements.csv (one row per number, unit in the name),
     phases.ome.tif (uint8, voxel size in µm), recipe.toml (defaults filled in),
-    provenance.json, figures/threshold_histogram.png and figures/slices.png.
+    provenance.json, figures/threshold_histogram.png and figures/slices.png, and report.html
+    (the self-contained HTML report, :mod:`ctpore.report.html`).
     """
     from ..provenance import provenance_record
     from ..report.figures import save_segmentation_figures
@@ -39,6 +40,9 @@ def write_result(result, out, *, force: bool, argv=None) -> Path:
             from ..report.profile_plots import write_profiles
 
             write_profiles(tmp, result.profiles, result.profiles["frame"])
+        from ..report.html import write_report
+
+        write_report(tmp, name=out.name)  # inside the folder, so it is whole or absent
     return out
 
 
