@@ -113,6 +113,10 @@ def _build_parser() -> argparse.ArgumentParser:
 
     add_report_parser(sub)
 
+    from .viewer.command import add_view_parser  # light: napari is imported only by `view`
+
+    add_view_parser(sub)
+
     r = sub.add_parser("recipe", help="print the default recipe (all keys, documented in "
                        "docs/recipe.md) or check one")
     r.add_argument("--check", metavar="TOML", help="validate a recipe file and print it in full")
@@ -146,6 +150,10 @@ def main(argv: list[str] | None = None) -> int:
             return run_convert(args)
         if args.command == "batch":
             return _batch(args, quiet)
+        if args.command == "view":
+            from .viewer.command import run_view
+
+            return run_view(args)
         if args.command == "report":
             from .report.command import run_report
 
