@@ -1,9 +1,14 @@
-"""``ctpore compare RESULT FIELD``: a simulated porosity field against the scanned piece.
+"""``ctpore compare``: a simulated porosity field against the scanned piece, once or over time.
 
-The scan is coarse-grained with the chosen kernel (:func:`ctpore.continuum.coarse.coarsen`)
-at the model's points after alignment; the point metrics and the shape metrics of
-:mod:`ctpore.compare.metrics` are written to ``RESULT/compare_<field name>/``:
-``comparison.json``, ``difference.csv``, ``parity.png`` and ``difference.png``.
+Single form, ``ctpore compare RESULT FIELD``: the scan is coarse-grained with the chosen kernel
+(:func:`ctpore.continuum.coarse.coarsen`) at the model's points after alignment; the point
+metrics and the shape metrics of :mod:`ctpore.compare.metrics` are written to
+``RESULT/compare_<field name>/``: ``comparison.json``, ``difference.csv`` and the figures of
+:mod:`ctpore.report.compare_plots` (``maps.png``, ``parity.png``, ``difference.png``,
+``profiles.png``).
+
+Time-series form, ``ctpore compare MANIFEST.csv MODEL``: chosen when the first argument is a
+``.csv`` file (a result folder is a folder); see :mod:`ctpore.compare.time_command`.
 
 The model's domain on the scan grid (for the shape metrics) is the set of voxel centres within
 ``0.5·√d·h`` of a model point (``h`` the median nearest-neighbour distance of the model's
@@ -23,7 +28,9 @@ import numpy as np
 from ..errors import InputError
 from .fields import UNIT_CHOICES, ModelField, read_model_field
 
-__all__ = ["add_compare_parser", "run_compare", "compare_field", "model_domain_mask"]
+__all__ = ["add_compare_parser", "run_compare", "compare_field", "model_domain_mask",
+           "is_time_series", "rev_for", "kernel_for", "transform_for", "comparison_report",
+           "write_comparison"]
 
 _COMPARISON_KEYS = ("rmse", "mae", "bias", "pearson_r", "coverage", "share_within_band",
                     "n_points")
@@ -31,11 +38,23 @@ _COMPARISON_KEYS = ("rmse", "mae", "bias", "pearson_r", "coverage", "share_withi
 
 def add_compare_parser(subparsers):
     """Add the ``compare`` sub-command to an argparse sub-parser collection."""
-    c = subparsers.add_parser("compare", help="compare a simulated porosity field with the "
-                              "scanned piece of a result folder")
-    c.add_argument("result", help="result folder of `ctpore analyze`")
-    c.add_argument("field", help="model field: .csv point table (x,y,z or r,z + porosity), "
-                   ".npz grid, .ome.tif, .vti or .vtu")
+    c = subparsers.add_parser(
+        "compare", help="compare a simulated porosity field with the scanned piece of a result "
+        "folder, or a model's porosity over time with scans at known puffing times",
+        description="Single form: ctpore compare RESULT FIELD writes RESULT/compare_<field>/. "
+        "Time-series form, chosen when the first argument is a .csv file: ctpore compare "
+        "MANIFEST.csv MODEL, where the manifest has the columns time_s,result (puffing time in "
+        "s, result folder relative to the manifest) and MODEL is a curve CSV (time_s,porosity: "
+        "mean over the piece), a point table with a time_s column, or a field list CSV "
+        "(time_s,field). Model values are interpolated linearly in time between the two "
+        "bracketing model times (and marked so in the outputs); scan times outside the "
+        "model's time range are refused, never extrapolated. Output: "
+        "compare_over_time_<model>/ beside the manifest, or --out.")
+    c.add_argument("result", metavar="RESULT|MANIFEST", help="result folder of `ctpore "
+                   "analyze`, or a time-series manifest .csv (columns time_s,result)")
+    c.add_argument("field", metavar="FIELD|MODEL", help="model field: .csv point table (x,y,z "
+                   "or r,z + porosity), .npz grid, .ome.tif, .vti or .vtu; with a manifest: a "
+                   "curve time_s,porosity, a point table with time_s, or a list time_s,field")
     c.add_argument("--length-unit", choices=UNIT_CHOICES, help="unit of the field's lengths "
                    "(required unless the file declares it)")
     c.add_argument("--kernel", choices=("box", "ball", "gaussian"),
@@ -51,11 +70,91 @@ def add_compare_parser(subparsers):
     c.add_argument("--scale", type=float, default=1.0, help="with --align none: scale factor")
     c.add_argument("--z-origin", choices=("first_tip", "centroid"), default="first_tip",
                    help="(r, z) models: where z = 0 lies on the scan's long axis")
-    c.add_argument("--time", type=float, metavar="S", help="time (s) to compare when the "
-                   "table holds several")
+    c.add_argument("--time", type=float, metavar="S", help="single form: time (s) to compare "
+                   "when the table holds several")
+    c.add_argument("--curve", metavar="CSV", help="time-series form: the model's curve "
+                   "time_s,porosity (mean over the piece) when MODEL gives fields; without it "
+                   "the curve is the mean of the fields")
+    c.add_argument("--field-time", choices=("interpolate", "nearest"), default="interpolate",
+                   help="time-series form: fields at a scan time between two model times are "
+                   "interpolated linearly point by point (default; needs the same points at "
+                   "both times) or taken from the nearest model time")
+    c.add_argument("--out", metavar="DIR", help="time-series form: output folder (default "
+                   "compare_over_time_<model name>/ beside the manifest)")
     c.add_argument("--force", action="store_true", help="replace an existing compare folder")
     c.add_argument("--quiet", action="store_true", help="no progress lines")
     return c
+
+
+def is_time_series(args) -> bool:
+    """True when the first argument is a manifest (a .csv file), not a result folder."""
+    p = Path(args.result)
+    return p.suffix.lower() == ".csv" and not p.is_dir()
+
+
+def rev_for(result, recipe, *, quiet: bool = False) -> dict:
+    """The REV figures of a result: from its rev/rev.json, else computed now (not saved).
+
+    Returns ``{"A3_um3", "source", "widths": {"box", "gaussian", "ball"}}``.
+    """
+    import json
+
+    path = result.path / "rev" / "rev.json"
+    if path.is_file():
+        data = json.loads(path.read_text(encoding="utf-8"))
+        source = f"read from {path}"
+    else:
+        from ..continuum.rev import rev_study
+
+        if not quiet:
+            print(f"{result.path}: no rev/ study yet; running it (write it with `ctpore rev`)",
+                  file=sys.stderr)
+        s = rev_study(result.phases, spacing_um=result.spacing_um, section=recipe.rev)
+        data = {"integral_range_um3": s.integral_range_um3,
+                "recommended_width_um": s.recommended_width_um,
+                "recommended_gaussian_sigma_um": s.recommended_gaussian_sigma_um,
+                "recommended_ball_diameter_um": s.recommended_ball_diameter_um}
+        source = "computed for this run"
+    return {"A3_um3": data["integral_range_um3"], "source": source,
+            "widths": {"box": data["recommended_width_um"],
+                       "gaussian": data["recommended_gaussian_sigma_um"],
+                       "ball": data["recommended_ball_diameter_um"]}}
+
+
+def kernel_for(result, args, *, quiet: bool = False) -> dict:
+    """Kernel of a comparison from ``--kernel``/``--width`` and the result's recipe and REV.
+
+    The REV study is always taken (from ``rev/rev.json`` or run now): its integral range
+    gives the scan's sampling uncertainty, and with ``--width auto`` the width.
+
+    Returns ``{"kernel", "shape", "width_um", "width_source", "rev"}``.
+    """
+    from ..continuum.kernels import Kernel
+    from ..result_commands import parse_length_um
+
+    recipe = result.recipe
+    shape = args.kernel or recipe.coarsen.kernel
+    width_text = (args.width or "auto").strip().lower()
+    rev = rev_for(result, recipe, quiet=quiet)
+    if width_text == "auto":
+        width, width_source = float(rev["widths"][shape]), "REV study"
+    else:
+        width, width_source = parse_length_um(args.width), "command line"
+    kernel = Kernel(shape, width, truncate_sigma=recipe.coarsen.truncate_sigma)
+    return {"kernel": kernel, "shape": shape, "width_um": width, "width_source": width_source,
+            "rev": rev}
+
+
+def transform_for(args):
+    """The explicit transform of ``--align none`` (None for principal alignment)."""
+    from .align import explicit_transform
+
+    if args.align != "none":
+        return None
+    return explicit_transform(
+        rotation=None if args.rotation is None else _numbers(args.rotation, 9, "--rotation"),
+        translation_um=None if args.translation_um is None
+        else _numbers(args.translation_um, 3, "--translation-um"), scale=args.scale)
 
 
 def _numbers(text, n, name):
@@ -113,13 +212,21 @@ def model_domain_mask(model: ModelField, transform, frame, *, shape, spacing_um,
     h = float(np.median(nn[nn > 0])) if (nn > 0).any() else float(spacing.min())
     reach = 0.5 * math.sqrt(pts.shape[1]) * h * (1 + 1e-9)
     mask = np.zeros(shape, bool)
-    box = [(0, n) for n in shape]
-    if not model.axisymmetric:  # only the model's bounding box (plus its reach) is searched
-        lo = np.floor((pts.min(axis=0) - reach) / spacing).astype(int)
-        hi = np.ceil((pts.max(axis=0) + reach) / spacing).astype(int) + 1
-        box = [(max(0, a), min(n, b)) for a, b, n in zip(lo, hi, shape)]
-        if any(a >= b for a, b in box):
-            return mask
+    # only the model's bounding box (plus its reach) is searched; for (r, z) models the box of
+    # the cylinder r <= max r + reach between the end discs (axis e: half-width R·sqrt(1 - e_k²))
+    if model.axisymmetric:
+        e = np.asarray(frame.axes[0], float)
+        c = np.asarray(frame.centroid_um, float)
+        ends = c + np.outer([pts[:, 1].min() - reach, pts[:, 1].max() + reach], e)
+        half = (pts[:, 0].max() + reach) * np.sqrt(np.clip(1.0 - e * e, 0.0, None))
+        p_lo, p_hi = ends.min(axis=0) - half, ends.max(axis=0) + half
+    else:
+        p_lo, p_hi = pts.min(axis=0) - reach, pts.max(axis=0) + reach
+    lo = np.floor(p_lo / spacing).astype(int)
+    hi = np.ceil(p_hi / spacing).astype(int) + 1
+    box = [(max(0, a), min(n, b)) for a, b, n in zip(lo, hi, shape)]
+    if any(a >= b for a, b in box):
+        return mask
     coords = [np.arange(a, b) * s for (a, b), s in zip(box, spacing)]
     yy, xx = np.meshgrid(coords[1], coords[2], indexing="ij")
     for k, z in enumerate(range(*box[0])):
@@ -247,63 +354,89 @@ def _field_name(path: Path) -> str:
 
 
 def run_compare(args) -> int:
-    """Run ``ctpore compare``; returns the exit status (0). Raises InputError on bad input."""
-    from ..continuum.kernels import Kernel
-    from ..io.result_folder import check_destination, result_folder, write_json
-    from ..io.result_reader import open_result
-    from ..result_commands import _rev_for, parse_length_um
-    from .align import explicit_transform
+    """Run ``ctpore compare``; returns the exit status (0). Raises InputError on bad input.
 
+    A first argument that is a ``.csv`` file selects the time-series form
+    (:func:`ctpore.compare.time_command.run_compare_over_time`).
+    """
+    from ..io.result_folder import check_destination, result_folder
+    from ..io.result_reader import open_result
+
+    if is_time_series(args):
+        from .time_command import run_compare_over_time
+
+        return run_compare_over_time(args)
+    for flag, value in (("--curve", getattr(args, "curve", None)),
+                        ("--out", getattr(args, "out", None))):
+        if value is not None:
+            raise InputError(f"{flag} belongs to the time-series form (a manifest .csv as the "
+                             f"first argument); {args.result} is a result folder",
+                             f"drop {flag}, or give a manifest with columns time_s,result")
+    quiet = getattr(args, "quiet", False)
     result = open_result(args.result)
     recipe = result.recipe
     field_path = Path(args.field)
     model = read_model_field(field_path, length_unit=args.length_unit, time_s=args.time)
     target = result.path / f"compare_{_field_name(field_path)}"
     check_destination(target, force=args.force)
-    shape = args.kernel or recipe.coarsen.kernel
-    width_text = (args.width or "auto").strip().lower()
-    rev = None
-    if width_text == "auto" or (result.path / "rev" / "rev.json").is_file():
-        rev = _rev_for(result, recipe)
-    if width_text == "auto":
-        width, width_source = float(rev["widths"][shape]), "REV study"
-    else:
-        width, width_source = parse_length_um(args.width), "command line"
-    kernel = Kernel(shape, width, truncate_sigma=recipe.coarsen.truncate_sigma)
-    transform = None
-    if args.align == "none":
-        transform = explicit_transform(
-            rotation=None if args.rotation is None else _numbers(args.rotation, 9, "--rotation"),
-            translation_um=None if args.translation_um is None
-            else _numbers(args.translation_um, 3, "--translation-um"), scale=args.scale)
-    out = compare_field(result.phases, model, spacing_um=result.spacing_um, kernel=kernel,
+    k = kernel_for(result, args, quiet=quiet)
+    rev = k["rev"]
+    out = compare_field(result.phases, model, spacing_um=result.spacing_um, kernel=k["kernel"],
                         min_coverage=recipe.coarsen.min_coverage,
-                        A3_um3=None if rev is None else rev["A3_um3"], align=args.align,
-                        transform=transform, z_origin=args.z_origin)
-    report = {k: out["metrics"][k] for k in _COMPARISON_KEYS}
-    report.update({
-        "n_valid": out["metrics"]["n_valid"], "kernel": kernel.name, "kernel_shape": shape,
-        "width_um": width, "width_source": width_source,
-        "integral_range_um3": None if rev is None else rev["A3_um3"],
-        "integral_range_source": None if rev is None else rev["source"],
-        "band": "|model - scan| <= 2 sigma (scan sampling uncertainty from A3)",
-        "transform": out["transform"].to_dict(), "alignment": out["alignment"],
-        "field_source": str(field_path), "length_unit": model.length_unit,
-        "axisymmetric": model.axisymmetric, "time_s": model.time_s,
-        "shape": out["shape"], "min_coverage": recipe.coarsen.min_coverage,
-        "difference": "model - scan"})
+                        A3_um3=rev["A3_um3"], align=args.align,
+                        transform=transform_for(args), z_origin=args.z_origin)
+    report = comparison_report(out, model, k, min_coverage=recipe.coarsen.min_coverage,
+                               field_source=str(field_path))
     with result_folder(target, force=args.force) as tmp:
-        write_json(tmp / "comparison.json", report)
-        _write_difference(tmp / "difference.csv", model, out)
-        _figures(tmp, out, kernel.name)
+        write_comparison(tmp, out, model, report, result.phases, spacing_um=result.spacing_um,
+                         kernel=k["kernel"], min_coverage=recipe.coarsen.min_coverage)
+        from ..report.html import write_report
+
+        write_report(tmp, name=target.name)
+    # the result's own report is a view of its folder: re-made so it shows this comparison
+    write_report(result.path, force=True)
     m = out["metrics"]
-    if not getattr(args, "quiet", False):
+    if not quiet:
         print(f"{result.path}: {field_path.name}: RMSE {m['rmse']:.4f}, bias {m['bias']:+.4f}, "
-              f"r {m['pearson_r']:.3f}, coverage {m['coverage']:.3f} ({kernel.name}) -> {target}")
+              f"r {m['pearson_r']:.3f}, coverage {m['coverage']:.3f} ({k['kernel'].name}) -> "
+              f"{target}")
     if m["coverage"] < 0.5:
         print(f"{result.path}: warning: only {m['coverage']:.0%} of the model's points fall on "
               "the piece; check --length-unit and the alignment", file=sys.stderr)
     return 0
+
+
+def comparison_report(out, model, k, *, min_coverage, field_source) -> dict:
+    """The comparison.json content of one comparison (stable keys, units in names)."""
+    rev = k["rev"]
+    report = {key: out["metrics"][key] for key in _COMPARISON_KEYS}
+    report.update({
+        "n_valid": out["metrics"]["n_valid"], "kernel": k["kernel"].name,
+        "kernel_shape": k["shape"], "width_um": k["width_um"],
+        "width_source": k["width_source"],
+        "integral_range_um3": None if rev is None else rev["A3_um3"],
+        "integral_range_source": None if rev is None else rev["source"],
+        "band": "|model - scan| <= 2 sigma (scan sampling uncertainty from A3)",
+        "transform": out["transform"].to_dict(), "alignment": out["alignment"],
+        "field_source": field_source, "length_unit": model.length_unit,
+        "axisymmetric": model.axisymmetric, "time_s": model.time_s,
+        "shape": out["shape"], "min_coverage": min_coverage,
+        "difference": "model - scan",
+        "figures": ["maps.png", "parity.png", "difference.png", "profiles.png"]})
+    return report
+
+
+def write_comparison(folder, out, model, report, phases, *, spacing_um, kernel,
+                     min_coverage) -> None:
+    """Write comparison.json, difference.csv and the figures of one comparison."""
+    from ..io.result_folder import write_json
+    from ..report.compare_plots import save_comparison_figures
+
+    folder = Path(folder)
+    write_json(folder / "comparison.json", report)
+    _write_difference(folder / "difference.csv", model, out)
+    save_comparison_figures(folder, out, model, phases, spacing_um=spacing_um, kernel=kernel,
+                            min_coverage=min_coverage)
 
 
 def _write_difference(path, model, out):
@@ -323,38 +456,3 @@ def _write_difference(path, model, out):
         w.writerow(cols + ["model_porosity", "scan_porosity", "sigma", "difference"])
         for row in table.tolist():
             w.writerow([_csv_cell(v) for v in row])
-
-
-def _figures(folder: Path, out, kernel_name):
-    from matplotlib.figure import Figure
-
-    ok = np.isfinite(out["scan"])
-    m, s = out["model"][ok], out["scan"][ok]
-    fig = Figure(figsize=(4.5, 4.5))
-    ax = fig.add_subplot()
-    ax.scatter(s, m, s=2, alpha=0.4, linewidths=0)
-    lo = float(min(m.min(), s.min()))
-    hi = float(max(m.max(), s.max()))
-    ax.plot([lo, hi], [lo, hi], "k-", lw=1, label="model = scan")
-    ax.set_xlabel(f"scan porosity ({kernel_name})")
-    ax.set_ylabel("model porosity")
-    ax.legend(loc="upper left")
-    fig.tight_layout()
-    fig.savefig(folder / "parity.png", dpi=120, metadata={"Software": None})
-
-    fig = Figure(figsize=(6, 3.5))
-    ax = fig.add_subplot()
-    d = m - s
-    a = out["axial_um"][ok] / 1000.0
-    ax.scatter(a, d, s=2, alpha=0.4, linewidths=0, label="model − scan")
-    if out["sigma"] is not None:
-        sg = out["sigma"][ok]
-        order = np.argsort(a)
-        ax.fill_between(a[order], -2 * sg[order], 2 * sg[order], color="0.8", alpha=0.5,
-                        label="±2σ (scan sampling)")
-    ax.axhline(0, color="k", lw=1)
-    ax.set_xlabel("position along the long axis from the first tip (mm)")
-    ax.set_ylabel("porosity difference")
-    ax.legend(loc="upper right", fontsize=8)
-    fig.tight_layout()
-    fig.savefig(folder / "difference.png", dpi=120, metadata={"Software": None})
