@@ -104,10 +104,28 @@ def run_demo(out="ctpore_demo", *, force: bool = False, quiet: bool = False,
             write_demo_model(tmp / "model")
         with progress.step("scan against simulation: one piece, and one setting over time"):
             comparisons = _run_comparisons(tmp, manifest)
+        _relocate_recorded_paths(tmp, out)
     _print_table(rows, out, stream)
     _print_verdicts(report, out, stream)
     _print_comparisons(comparisons, out, stream)
     return rows
+
+
+def _relocate_recorded_paths(tmp: Path, out: Path) -> None:
+    """Make the paths recorded while the demo was built name the files' final place.
+
+    The demo is built in a temporary folder that is renamed to ``out`` at the end, so the
+    input paths in provenance.json, summary.json, the batch tables and the reports would name
+    a folder that no longer exists (and the viewer could not find the grey stacks). The text
+    files are rewritten before the rename; binary files record no paths.
+    """
+    old, new = str(Path(tmp).resolve()), str(Path(out).resolve())
+    for path in sorted(Path(tmp).rglob("*")):
+        if path.suffix.lower() not in (".json", ".csv", ".html", ".toml") or not path.is_file():
+            continue
+        text = path.read_text(encoding="utf-8")
+        if old in text:
+            path.write_text(text.replace(old, new), encoding="utf-8")
 
 
 #: The demo's comparisons: kernel of the scan average (the model's grid step is 50 µm; a

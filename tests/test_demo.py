@@ -35,6 +35,7 @@ def test_demo_runs_whole_and_tracks_the_truth(tmp_path):
     with open(out / "demo_summary.csv") as fh:
         assert len(list(csv.DictReader(fh))) == 6
     _check_scan_against_simulation(out, text)
+    _check_recorded_paths(out)
     # An existing demo folder is not replaced without --force.
     assert main(["demo", "--out", str(out), "--quiet"]) == 2
 
@@ -68,3 +69,24 @@ def _check_scan_against_simulation(out, text):
     assert ts["curve_metrics"]["rmse"] < 0.2
     assert ts["field_metrics"]["n_times"] == 3
     assert "Scan against simulation" in text and "RMSE" in text
+
+
+def _check_recorded_paths(out):
+    """Recorded input paths name the files' final place, not the temporary build folder."""
+    for path in out.rglob("*"):
+        if path.suffix in (".json", ".csv", ".html", ".toml"):
+            assert ".partial" not in path.read_text(encoding="utf-8"), path
+    prov = json.loads((out / "results" / "intense_12s" / "provenance.json").read_text())
+    recorded = [v for v in _strings(prov) if v.endswith((".tif", ".tiff"))]
+    assert recorded and all(__import__("pathlib").Path(v).exists() for v in recorded)
+
+
+def _strings(obj):
+    if isinstance(obj, str):
+        yield obj
+    elif isinstance(obj, dict):
+        for v in obj.values():
+            yield from _strings(v)
+    elif isinstance(obj, list):
+        for v in obj:
+            yield from _strings(v)

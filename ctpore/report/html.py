@@ -142,7 +142,7 @@ def _compare_sections(folder: Path, figures) -> tuple[list, dict]:
     from .blocks import section, text
 
     parent = folder.parent
-    blocks = ms.comparison_blocks(folder, figures)
+    blocks = ms.comparison_blocks(folder, figures, own_folder=True)
     if (parent / "summary.json").is_file():
         s = _read_summary(parent)
         from .blocks import fmt

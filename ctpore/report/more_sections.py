@@ -160,7 +160,7 @@ _COMPARE_CAPTIONS = {
 }
 
 
-def _comparison_figures(sub: Path, c: dict, figures) -> list:
+def _comparison_figures(sub: Path, c: dict, figures, prefix: str) -> list:
     """The figures a comparison folder lists (comparison.json "figures"), then any other PNG."""
     names = [n for n in (c.get("figures") or []) if isinstance(n, str)]
     names += sorted(p.name for p in sub.glob("*.png") if p.name not in names
@@ -169,12 +169,16 @@ def _comparison_figures(sub: Path, c: dict, figures) -> list:
     for n in names:
         stem = Path(n).stem
         blocks.append(figures.embed(sub / n, caption=_COMPARE_CAPTIONS.get(stem, stem),
-                                    shown_as=f"{sub.name}/{n}"))
+                                    shown_as=f"{prefix}{n}"))
     return blocks
 
 
-def comparison_blocks(sub: Path, figures, *, heading: str = "") -> list:
-    """Blocks of one compare_<name> folder, under a sub-heading when ``heading`` is given."""
+def comparison_blocks(sub: Path, figures, *, heading: str = "", own_folder: bool = False) -> list:
+    """Blocks of one compare_<name> folder, under a sub-heading when ``heading`` is given.
+
+    File names are shown relative to the report: ``sub``'s own name is left out when the report
+    is the comparison folder's own (``own_folder``), which may still have a temporary name.
+    """
     c = read_json(sub / "comparison.json")
     if c is None:
         return []
@@ -200,7 +204,7 @@ def comparison_blocks(sub: Path, figures, *, heading: str = "") -> list:
               table(["", "value"], rows, caption="point metrics"),
               table(["", "value"], shape_rows, caption="shape of the model's domain against "
                     "the scan's envelope"),
-              *_comparison_figures(sub, c, figures)]
+              *_comparison_figures(sub, c, figures, "" if own_folder else f"{sub.name}/")]
     coverage = c.get("coverage")
     if isinstance(coverage, (int, float)) and coverage < 0.5:
         blocks.append(note(f"Only {coverage:.0%} of the model's points fall on the piece: check "
