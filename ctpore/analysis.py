@@ -65,7 +65,8 @@ class AnalysisResult:
 
 
 def analyze(stack, *, spacing_um=None, recipe=None, out=None, force: bool = False,
-            quiet: bool = True, argv: list[str] | None = None) -> AnalysisResult:
+            quiet: bool = True, argv: list[str] | None = None,
+            memory_limit_bytes: int | None = None, scheduler=None) -> AnalysisResult:
     """Segment a micro-CT stack of one piece and measure its porosity.
 
     Parameters
@@ -86,6 +87,13 @@ def analyze(stack, *, spacing_um=None, recipe=None, out=None, force: bool = Fals
         Print no progress.
     argv : list of str, optional
         Command line, recorded in provenance.json.
+    memory_limit_bytes : int, optional
+        Memory budget. When the in-memory analysis of this stack would need more (about 55
+        bytes per voxel, measured), the stack is analysed chunk by chunk on disk
+        (:func:`ctpore.chunked.analyze_chunked`, same numbers, fewer measures). Without a
+        budget, 80 % of the memory available now is the budget (when psutil is installed).
+    scheduler : str or dask.distributed.Client, optional
+        Run the chunked path on this dask scheduler (implies the chunked path).
 
     Returns
     -------
@@ -114,8 +122,14 @@ def analyze(stack, *, spacing_um=None, recipe=None, out=None, force: bool = Fals
                         + (1 if recipe.profiles.enabled else 0)
                         + (1 if recipe.corrections.cupping else 0)
                         + (1 if recipe.corrections.uncertainty else 0), quiet=quiet)
+    scan = _as_scan(stack, spacing_um, read_stack)  # lazy: nothing is read yet
+    if _use_chunked(scan.shape, memory_limit_bytes, scheduler):
+        from .chunked import analyze_chunked
+
+        return analyze_chunked(scan, recipe=recipe, memory_limit_bytes=memory_limit_bytes,
+                               scheduler=scheduler, out=out, force=force, quiet=quiet,
+                               argv=argv)
     with progress.step("read stack"):
-        scan = _as_scan(stack, spacing_um, read_stack)
         grey = scan.load()
         check_finite(grey, scan.source)
         _check_contrast(grey, scan.source)
@@ -180,6 +194,22 @@ def _as_scan(stack, spacing_um, read_stack) -> Scan:
         raise InputError("spacing_um is missing for an array input; ctpore never assumes one",
                          "pass spacing_um=(dz, dy, dx) in µm")
     return Scan(array, spacing_um, "<array>", "user", {"format": "array"})
+
+
+def _use_chunked(shape, memory_limit_bytes, scheduler) -> bool:
+    """True when a scheduler is given or the in-memory peak would exceed the budget."""
+    if scheduler is not None:
+        return True
+    from .chunked.memory import in_memory_peak_bytes
+
+    budget = memory_limit_bytes
+    if budget is None:
+        try:
+            import psutil
+        except ImportError:
+            return False
+        budget = 0.8 * psutil.virtual_memory().available
+    return in_memory_peak_bytes(tuple(shape)) > budget
 
 
 def _check_contrast(grey, source):

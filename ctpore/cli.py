@@ -39,6 +39,11 @@ def _build_parser() -> argparse.ArgumentParser:
     a.add_argument("--force", action="store_true", help="replace an existing result folder")
     a.add_argument("--quiet", action="store_true", help="no progress lines")
     a.add_argument("--json", action="store_true", help="print summary.json to standard output")
+    a.add_argument("--memory", metavar="SIZE", help="memory budget, e.g. 4GB or 512MiB: a stack "
+                   "whose in-memory analysis would need more is analysed chunk by chunk on disk "
+                   "(default: 80%% of the memory available)")
+    a.add_argument("--scheduler", metavar="ADDRESS", help="dask.distributed scheduler address "
+                   "(e.g. tcp://127.0.0.1:8786) for the chunked analysis (implies chunked)")
 
     d = sub.add_parser("demo", help="generate the demo scenario and analyse every piece")
     d.add_argument("--out", metavar="DIR", default="ctpore_demo", help="demo folder "
@@ -176,8 +181,14 @@ def _analyze(args, argv, quiet) -> int:
 
     stack = Path(args.stack)
     out = Path(args.out) if args.out else Path.cwd() / f"{_stem(stack)}_ctpore"
+    memory = None
+    if args.memory is not None:
+        from .chunked.memory import parse_memory
+
+        memory = parse_memory(args.memory)
     result = analyze(stack, spacing_um=args.spacing, recipe=args.recipe, out=out,
-                     force=args.force, quiet=quiet, argv=["ctpore", *argv])
+                     force=args.force, quiet=quiet, argv=["ctpore", *argv],
+                     memory_limit_bytes=memory, scheduler=args.scheduler)
     s = result.summary
     if args.json:
         print(json.dumps(s, indent=2, sort_keys=True, default=str))

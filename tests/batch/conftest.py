@@ -10,7 +10,7 @@ def dask_client():
     from distributed import Client, LocalCluster
 
     cluster = LocalCluster(n_workers=2, threads_per_worker=1, processes=True,
-                           dashboard_address=None, memory_limit="1GiB")
+                           dashboard_address=":0", memory_limit="1GiB")
     client = Client(cluster, set_as_default=False)
     try:
         yield client

@@ -1,0 +1,63 @@
+"""--memory parsing, chunk choice and the RSS sampler."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+
+@pytest.mark.parametrize("text, expected", [
+    ("4GB", 4 * 10**9), ("512MiB", 512 * 2**20), ("1.5GiB", int(1.5 * 2**30)),
+    ("800000000", 800_000_000), ("2 g", 2 * 10**9), ("64kb", 64_000), (10**9, 10**9)])
+def test_parse_memory(text, expected):
+    # SI prefixes are powers of 1000, IEC binary prefixes powers of 1024 (IEC 80000-13).
+    from ctpore.chunked import parse_memory
+
+    assert parse_memory(text) == expected
+
+
+@pytest.mark.parametrize("text", ["", "four GB", "4 parsecs", "-1GB", "0", "GB", True])
+def test_parse_memory_rejects_bad_text(text):
+    from ctpore.chunked import parse_memory
+    from ctpore.errors import InputError
+
+    with pytest.raises(InputError, match="--memory"):
+        parse_memory(text)
+
+
+def test_choose_chunks_fits_the_budget():
+    from ctpore.chunked.memory import BASELINE_BYTES, TASK_BYTES_PER_VOXEL, choose_chunks
+    from ctpore.errors import InputError
+
+    shape = (2000, 2048, 2048)
+    for budget in (2 * 10**9, 4 * 10**9, 16 * 10**9):
+        c = choose_chunks(shape, np.uint16, budget, halo=(16, 16, 16), workers=2)
+        assert all(v % 16 == 0 and v >= 32 for v in c)
+        cost = 2 * (TASK_BYTES_PER_VOXEL + 2) * (max(c) + 32) ** 3 + BASELINE_BYTES
+        assert cost <= budget
+    assert choose_chunks(shape, np.uint16, 4 * 10**9, workers=2) < \
+        choose_chunks(shape, np.uint16, 16 * 10**9, workers=2)
+    assert choose_chunks((50, 60, 70), np.uint8, 16 * 10**9) == (50, 60, 70)
+    assert choose_chunks((500, 600, 700), np.uint8, None) == (256, 256, 256)
+    with pytest.raises(InputError, match="too small"):
+        choose_chunks(shape, np.uint16, 300 * 2**20)
+
+
+def test_in_memory_estimate():
+    from ctpore.chunked import in_memory_peak_bytes
+
+    assert in_memory_peak_bytes((100, 100, 100)) == 55 * 10**6
+
+
+def test_peak_memory_sees_an_allocation():
+    pytest.importorskip("psutil")
+    from ctpore.chunked.memory import PeakMemory
+
+    with PeakMemory(interval_s=0.005) as m:
+        block = np.ones(200 * 2**20, dtype=np.uint8)  # 200 MiB, touched
+        block[::4096] = 2
+        import time
+
+        time.sleep(0.05)
+        del block
+    assert m.peak_bytes - m.start_bytes > 150 * 2**20
