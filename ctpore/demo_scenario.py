@@ -333,8 +333,15 @@ def _cell_seeds(rng, semi, diameter_um):
     it rather than stretched to it. Random sequential addition with a minimum distance of 0.6
     diameters (packing fraction of the hard cores 0.22, well below the jamming limit 0.38 of
     random sequential addition).
+
+    A piece smaller than about one cell (a small field of view) can end with no seed inside
+    the body itself, i.e. only slivers of outside cells and no cell of its own; then one seed
+    is put at the body centre and the seeds within the hard-core distance of it are dropped,
+    so the piece holds at least one cell. This draws no random numbers, and pieces that
+    already have a seed inside are left as they were.
     """
-    semi = np.asarray(semi) + 0.5 * diameter_um
+    body_semi = np.asarray(semi, dtype=float)
+    semi = body_semi + 0.5 * diameter_um
     s = np.linspace(-1.0, 1.0, 2001)
     taper = 1.0 - _TAPER * s * s
     volume = np.pi * semi[1] * semi[2] * semi[0] * np.trapezoid(taper**2 * (1 - s * s), s)
@@ -349,8 +356,17 @@ def _cell_seeds(rng, semi, diameter_um):
                 seeds[n] = c
                 n += 1
                 if n == n_target:
-                    return seeds
-    return seeds[:n]
+                    return _with_inner_cell(seeds, body_semi, r_min2)
+    return _with_inner_cell(seeds[:n], body_semi, r_min2)
+
+
+def _with_inner_cell(seeds, body_semi, r_min2):
+    """The seeds, or, when none lies in the body, a seed at its centre plus the seeds that keep
+    the hard-core distance from it."""
+    if seeds.shape[0] and np.any(_body_form(seeds.T, body_semi) <= 1.0):
+        return seeds
+    far = np.sum(seeds ** 2, axis=1) >= r_min2
+    return np.concatenate([np.zeros((1, 3)), seeds[far]])
 
 
 def _sealed_cells(rng, seeds, semi, fraction):
@@ -368,13 +384,22 @@ def _sealed_cells(rng, seeds, semi, fraction):
 
 
 def _three_nearest(seeds, pts, chunk=131072):
-    """Distances to and indices of the three nearest seeds of each point, shape (n, 3)."""
+    """Distances to and indices of the three nearest seeds of each point, shape (n, 3).
+
+    With fewer than three seeds (a piece of one or two cells) the missing neighbours get
+    distance inf, so no face is drawn to them, and the nearest seed's index, so that lookups
+    by index stay valid (``cKDTree.query`` would give the out-of-range index ``len(seeds)``).
+    """
     tree = cKDTree(seeds)
     n = pts.shape[0]
-    d = np.empty((n, 3))
+    k = min(3, seeds.shape[0])
+    d = np.full((n, 3), np.inf)
     i = np.empty((n, 3), dtype=np.int64)
     for start in range(0, n, chunk):
-        d[start:start + chunk], i[start:start + chunk] = tree.query(pts[start:start + chunk], k=3)
+        dd, ii = tree.query(pts[start:start + chunk], k=k)
+        d[start:start + chunk, :k] = np.reshape(dd, (-1, k))
+        i[start:start + chunk, :k] = np.reshape(ii, (-1, k))
+    i[:, k:] = i[:, :1]
     return d, i
 
 

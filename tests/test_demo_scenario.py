@@ -14,7 +14,8 @@ import pytest
 import tifffile
 from scipy import ndimage, signal
 
-from ctpore.demo_scenario import SCENARIO, SETTINGS, generate_scenario, make_piece
+from ctpore.demo_scenario import (SCENARIO, SETTINGS, _three_nearest, generate_scenario,
+                                  make_piece)
 from ctpore.errors import InputError
 
 SMALL = (48, 64, 64)
@@ -270,3 +271,40 @@ def test_generate_scenario_ome_only(tmp_path):
     rows = generate_scenario(tmp_path, shape=SMALL, formats=False)
     assert all(r["stack_path"].endswith(".ome.tif") and r["spacing_um"] == "" for r in rows)
     assert all((tmp_path / r["stack_path"]).is_file() for r in rows)
+
+
+@pytest.mark.parametrize("shape", [(40, 40, 40), (48, 64, 64)])
+@pytest.mark.parametrize("setting", sorted(SETTINGS))
+@pytest.mark.parametrize("time_s", [4.0, 8.0, 12.0])
+def test_small_fields_of_view_give_a_piece_with_a_cell(shape, setting, time_s):
+    # At 40³ the piece (~150-250 µm long) is smaller than one cell (160-340 µm): formerly the
+    # generator drew only two cell seeds and failed on the missing third neighbour (IndexError),
+    # or drew none inside the body. Now every setting and time gives a piece with a cell of
+    # its own, gas inside it and the 10-voxel background margin the generator promises.
+    piece = make_piece(setting=setting, time_s=time_s, seed=7, shape=shape)
+    ph, env, t = piece.truth_phases, piece.truth_envelope, piece.truth
+    assert t["n_cell_seeds_in_body"] >= 1
+    np.testing.assert_array_equal(env, ph > 0)
+    n_env, n_pore = int(env.sum()), int((ph == 1).sum())
+    assert n_pore > 0 and (ph == 2).any()
+    assert t["porosity_gas"] == pytest.approx(n_pore / n_env, rel=1e-12)
+    assert t["porosity_open"] + t["porosity_closed"] == pytest.approx(t["porosity_gas"])
+    assert min(_margins(env)) >= 10
+    _, n = ndimage.label(env)
+    assert n == 1
+
+
+@pytest.mark.parametrize("n_seeds", [1, 2, 3, 6])
+def test_three_nearest_with_few_seeds(n_seeds):
+    # Reference: brute-force distances with numpy. Missing neighbours (fewer than three seeds)
+    # are at infinity and carry the nearest seed's index, a valid index.
+    rng = np.random.default_rng(n_seeds)
+    seeds = rng.uniform(-100, 100, (n_seeds, 3))
+    pts = rng.uniform(-100, 100, (50, 3))
+    d, i = _three_nearest(seeds, pts)
+    full = np.linalg.norm(pts[:, None, :] - seeds[None, :, :], axis=2)
+    k = min(3, n_seeds)
+    np.testing.assert_allclose(d[:, :k], np.sort(full, axis=1)[:, :k], rtol=1e-12)
+    np.testing.assert_array_equal(i[:, 0], np.argmin(full, axis=1))
+    assert np.all(np.isinf(d[:, k:])) and np.all(i[:, k:] == i[:, :1])
+    assert i.min() >= 0 and i.max() < n_seeds
