@@ -230,6 +230,11 @@ def _partial_volume(seg, spacing_um, recipe) -> dict:
     pv = partial_volume_porosity(seg.grey, seg.envelope, choice=seg.threshold,
                                  spacing_um=spacing_um,
                                  solid_is_bright=recipe.threshold.solid_is_bright)
+    return _partial_volume_entries(pv)
+
+
+def _partial_volume_entries(pv: dict) -> dict:
+    """The summary entries of a ``partial_volume_porosity`` result (also the chunked path's)."""
     keys = ("porosity_partial_volume", "porosity_partial_volume_uncertainty", "gas_grey",
             "solid_grey", "gas_grey_spread", "solid_grey_spread", "gas_voxels_used",
             "solid_voxels_used", "gas_grey_source", "solid_grey_source")

@@ -15,7 +15,8 @@ import numpy as np
 from .errors import InputError
 from .spacing import as_spacing_um
 
-__all__ = ["PieceFrame", "piece_frame", "to_frame", "LONG_AXIS_CHOICES"]
+__all__ = ["PieceFrame", "piece_frame", "to_frame", "LONG_AXIS_CHOICES",
+           "moments_from_projections"]
 
 LONG_AXIS_CHOICES = ("auto", "z", "y", "x")
 _GRID_AXIS = {"z": 0, "y": 1, "x": 2}
@@ -126,7 +127,7 @@ def piece_frame(envelope, *, spacing_um, long_axis: str = "auto") -> PieceFrame:
     >>> box = np.zeros((4, 10, 4), bool); box[1:3, 1:9, 1:3] = True
     >>> f = piece_frame(box, spacing_um=1.0)
     >>> f.axes[0].round(6).tolist(), f.centroid_um, f.length_um
-    ([0.0, 1.0, 0.0], (2.0, 5.0, 2.0), 7.0)
+    ([0.0, 1.0, 0.0], (1.5, 4.5, 1.5), 7.0)
     """
     spacing = as_spacing_um(spacing_um)
     if long_axis not in LONG_AXIS_CHOICES:
@@ -191,14 +192,29 @@ def to_frame(frame: PieceFrame, coords_um):
 
 def _moments(env: np.ndarray, spacing) -> tuple[np.ndarray, np.ndarray, int]:
     """Centroid (3,), covariance (3, 3) in µm² and voxel count, from the 2-D projections."""
-    p_zy = np.count_nonzero(env, axis=2).astype(np.float64)  # (nz, ny)
-    p_zx = np.count_nonzero(env, axis=1).astype(np.float64)  # (nz, nx)
-    p_yx = np.count_nonzero(env, axis=0).astype(np.float64)  # (ny, nx)
+    return moments_from_projections(np.count_nonzero(env, axis=2),  # (nz, ny)
+                                    np.count_nonzero(env, axis=1),  # (nz, nx)
+                                    np.count_nonzero(env, axis=0),  # (ny, nx)
+                                    env.shape, spacing)
+
+
+def moments_from_projections(p_zy, p_zx, p_yx, shape, spacing
+                             ) -> tuple[np.ndarray, np.ndarray, int]:
+    """Centroid (3,), covariance (3, 3) in µm² and voxel count of a mask from its voxel counts
+    projected along x (``p_zy``), y (``p_zx``) and z (``p_yx``).
+
+    Second moments of a set of voxels need only these three 2-D projections (each pair of axes
+    appears in one of them); each voxel adds its own ``h² / 12`` per axis (uniform box of side
+    h). Used by :func:`piece_frame` and by the chunked path, which sums projections over chunks.
+    """
+    p_zy = np.asarray(p_zy).astype(np.float64)
+    p_zx = np.asarray(p_zx).astype(np.float64)
+    p_yx = np.asarray(p_yx).astype(np.float64)
     n = float(p_zy.sum())
     if n == 0:
         raise InputError("envelope: no voxel inside the piece (the envelope is empty)",
                          "check the segmentation: the piece was not found")
-    coords = [np.arange(s) * h for s, h in zip(env.shape, spacing)]
+    coords = [np.arange(s) * h for s, h in zip(shape, spacing)]
     marg = [p_zy.sum(axis=1), p_zy.sum(axis=0), p_zx.sum(axis=0)]
     centroid = np.array([(m * c).sum() / n for m, c in zip(marg, coords)])
     d = [c - c0 for c, c0 in zip(coords, centroid)]

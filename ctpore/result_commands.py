@@ -94,11 +94,12 @@ def _coarsen(result, recipe, args) -> int:
     from .continuum.coarse import Grid, coarsen, write_coarse_field
     from .continuum.kernels import Kernel
     from .io.result_folder import check_destination, result_folder
+    from .compare.command import rev_for
     from .spacing import as_spacing_um
 
     section = recipe.coarsen
     shape = args.kernel or section.kernel
-    rev = _rev_for(result, recipe)
+    rev = rev_for(result, recipe)
     if args.width and args.width.strip().lower() != "auto":
         width = parse_length_um(args.width)
         width_source = "command line"
@@ -140,29 +141,6 @@ def _coarsen(result, recipe, args) -> int:
     print(f"{result.path}: {kernel.name} field (width from the {width_source}; sampling "
           f"uncertainty from A3 = {rev['A3_um3']:.4g} µm³, {rev['source']}) -> {target}")
     return 0
-
-
-def _rev_for(result, recipe) -> dict:
-    """The REV figures: from the result's rev/rev.json when present, else computed now."""
-    path = result.path / "rev" / "rev.json"
-    if path.is_file():
-        data = json.loads(path.read_text(encoding="utf-8"))
-        source = f"read from {path}"
-    else:
-        from .continuum.rev import rev_study
-
-        print(f"{result.path}: no rev/ study yet; running it (write it with `ctpore rev`)",
-              file=sys.stderr)
-        s = rev_study(result.phases, spacing_um=result.spacing_um, section=recipe.rev)
-        data = {"integral_range_um3": s.integral_range_um3,
-                "recommended_width_um": s.recommended_width_um,
-                "recommended_gaussian_sigma_um": s.recommended_gaussian_sigma_um,
-                "recommended_ball_diameter_um": s.recommended_ball_diameter_um}
-        source = "computed for this run"
-    return {"A3_um3": data["integral_range_um3"], "source": source,
-            "widths": {"box": data["recommended_width_um"],
-                       "gaussian": data["recommended_gaussian_sigma_um"],
-                       "ball": data["recommended_ball_diameter_um"]}}
 
 
 def _three(text, name):

@@ -280,15 +280,12 @@ def _band(ws, runner, grey, env, choice, spacing, recipe) -> dict:
 
 def _partial_volume(ws, runner, grey, env, choice, spacing, recipe) -> dict:
     """``analysis._partial_volume`` across chunks (same keys)."""
+    from ..analysis import _partial_volume_entries
     from .partial_volume import chunked_partial_volume
 
     pv = chunked_partial_volume(ws, runner, grey, env, choice=choice, spacing=spacing,
                                 solid_is_bright=recipe.threshold.solid_is_bright)
-    keys = ("porosity_partial_volume", "porosity_partial_volume_uncertainty", "gas_grey",
-            "solid_grey", "gas_grey_spread", "solid_grey_spread", "gas_voxels_used",
-            "solid_voxels_used", "gas_grey_source", "solid_grey_source")
-    return {"partial_volume": {k: pv[k] for k in keys if k in pv},
-            "porosity_partial_volume": pv["porosity_partial_volume"]}
+    return _partial_volume_entries(pv)
 
 
 def _count_true(x):

@@ -14,7 +14,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from ..continuum.coarse import CoarseField, _averaged
+from ..continuum.coarse import CoarseField, _averaged, _check_kernel, _porosity
 from ..continuum.kernels import Kernel
 from ..errors import InputError
 from ._blocks import open_array, read_halo
@@ -31,12 +31,7 @@ def chunked_coarsen(ws, runner, phases: str, *, spacing, kernel: Kernel,
     Returns a :class:`CoarseField` whose ``porosity`` and ``coverage`` are the workspace's chunked
     arrays (read them slice by slice, or whole with ``[...]`` when they fit in memory).
     """
-    if not isinstance(kernel, Kernel):
-        raise InputError(f"kernel must be a ctpore Kernel; got {type(kernel).__name__}",
-                         "build one with Kernel('gaussian', width_um) or Kernel.from_section")
-    if not (isinstance(min_coverage, (int, float)) and 0 <= min_coverage <= 1):
-        raise InputError(f"min_coverage must be in [0, 1]; got {min_coverage!r}",
-                         "0.5 is the default")
+    _check_kernel(kernel, min_coverage)
     halo = kernel.radius_voxels(spacing)
     por = ws.create(f"{name}_porosity", np.float32)
     cov = ws.create(f"{name}_coverage", np.float32)
@@ -55,9 +50,7 @@ def _coarse_block(block, phases, spacing, kernel, min_coverage, halo, por, cov):
     envelope = data != EXTERIOR
     num = _averaged(data == PORE, kernel, spacing)[where.core]
     den = _averaged(envelope, kernel, spacing)[where.core]
-    with np.errstate(invalid="ignore", divide="ignore"):
-        porosity = np.clip(num / den, 0.0, 1.0).astype(np.float32)
-    porosity[~(den > 0) | (den < min_coverage)] = np.nan
+    porosity = _porosity(num, den, min_coverage)
     open_array(por, "r+")[block.slices] = porosity
     open_array(cov, "r+")[block.slices] = np.asarray(den, np.float32)
     return bool(envelope[where.core].any())

@@ -24,13 +24,11 @@ import math
 import numpy as np
 
 from ..errors import InputError
+from ..segment.partial_volume import porosity_from_mixture, pure_grey_estimate
 from ._blocks import open_array, read_halo
 from .selection import chunked_median
 
 __all__ = ["chunked_partial_volume"]
-
-_MEDIAN_SE = math.sqrt(math.pi / 2)
-_MAD_TO_SD = 1.4826
 
 
 def chunked_partial_volume(ws, runner, grey: str, envelope: str, *, choice, spacing,
@@ -53,55 +51,21 @@ def chunked_partial_volume(ws, runner, grey: str, envelope: str, *, choice, spac
         raise InputError("the grey values hold NaN or infinite values in the envelope",
                          "replace them or re-export the reconstruction")
     sum_grey = math.fsum(p[2] for p in parts)
-    n_shell = n_region - n_env
     result = {}
     for phase, pop, peak in (("gas", gas_pop, choice.gas_peak),
                              ("solid", solid_pop, choice.solid_peak)):
         n = sum(p[4 if phase == "gas" else 5] for p in parts)
-        if n >= 2:
+
+        def median_mad(pop=pop, n=n):
             est = chunked_median(runner, ws.blocks, _values, (grey, pop, None), n)
-            mad = chunked_median(runner, ws.blocks, _values, (grey, pop, est), n)
-            spread = float(_MAD_TO_SD * mad)
-            se, source = _MEDIAN_SE * spread / math.sqrt(n), "deep_voxels"
-        elif math.isfinite(peak):
-            est, spread, se, n, source = float(peak), math.nan, 0.0, 0, "histogram_peak"
-        else:
-            raise InputError(
-                f"no {phase} voxel lies {core_um:g} µm from the other phase, so the pure "
-                f"{phase} grey value cannot be estimated",
-                f"give {phase}_grey, or pass the threshold choice (its histogram peaks)")
-        result[phase] = (float(est), spread, se, n, source)
+            return est, chunked_median(runner, ws.blocks, _values, (grey, pop, est), n)
+
+        result[phase] = pure_grey_estimate(phase, n, median_mad, peak=peak, core_um=core_um)
     ws.remove("pv_gas")
     ws.remove("pv_solid")
-    g_gas, gas_spread, se_gas, n_gas, gas_source = result["gas"]
-    g_solid, solid_spread, se_solid, n_solid, solid_source = result["solid"]
-    delta = g_solid - g_gas
-    if not math.isfinite(delta) or delta == 0:
-        raise InputError(f"gas grey {g_gas:g} and solid grey {g_solid:g} must differ",
-                         "check gas_grey / solid_grey or the threshold")
-    gas_volume = (n_region * g_solid - sum_grey) / delta
-    phi = (gas_volume - n_shell) / n_env
-    dphi_ds = (1.0 - phi) / delta
-    dphi_dg = (phi + n_shell / n_env) / delta
-    noise = gas_spread if math.isfinite(gas_spread) else solid_spread
-    se_mean = (noise * math.sqrt(n_region) / (abs(delta) * n_env)
-               if math.isfinite(noise) else 0.0)
-    unc = math.sqrt((dphi_ds * se_solid) ** 2 + (dphi_dg * se_gas) ** 2 + se_mean ** 2)
-    return {
-        "porosity_partial_volume": float(phi),
-        "gas_grey": g_gas,
-        "solid_grey": g_solid,
-        "gas_grey_spread": gas_spread,
-        "solid_grey_spread": solid_spread,
-        "porosity_partial_volume_uncertainty": float(unc),
-        "gas_grey_source": gas_source,
-        "solid_grey_source": solid_source,
-        "gas_voxels_used": n_gas,
-        "solid_voxels_used": n_solid,
-        "shell_um": float(shell_um),
-        "dporosity_dsolid_grey": float(dphi_ds),
-        "dporosity_dgas_grey": float(dphi_dg),
-    }
+    return porosity_from_mixture(result["gas"], result["solid"],
+                                 lambda g_solid: n_region * g_solid - sum_grey,
+                                 n_envelope=n_env, n_region=n_region, shell_um=shell_um)
 
 
 def _distance(mask, spacing):

@@ -11,7 +11,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from ..errors import InputError
+from ..measure.porosity import check_phase_counts, porosity_from_counts
 from ..spacing import voxel_volume_um3
 from ._blocks import open_array
 from ._tables import apply_table, count_blocks, map_blocks
@@ -38,15 +38,7 @@ def chunked_porosity(ws, runner, phases: str, *, spacing_um, classes_name="class
     voxel_mm3 = voxel_volume_um3(spacing_um) / _UM3_PER_MM3
     counts = count_blocks(ws, runner, _phase_counts, [phases])
     n_pore, n_solid = int(counts[PORE]), int(counts[SOLID])
-    n_envelope = n_pore + n_solid
-    if n_envelope == 0:
-        raise InputError(
-            "phases: the envelope is empty (no pore or solid voxel): there is no piece to measure",
-            "check the threshold and the contrast of the stack: the solid was not found")
-    if n_solid == 0:
-        raise InputError(
-            "phases: no solid voxel was found inside the envelope",
-            "check the threshold and the contrast of the stack (is the solid brighter than gas?)")
+    check_phase_counts(n_pore, n_solid)
     comps = label_components(ws, runner, _nonsolid, [phases], kind=FACE, name="nonsolid_labels",
                              marker_fn=_exterior)
     is_open = comps.marked | comps.border
@@ -54,22 +46,10 @@ def chunked_porosity(ws, runner, phases: str, *, spacing_um, classes_name="class
                           [phases], classes_name, np.uint8)
     ws.remove("nonsolid_labels")
     n_open = int(count_blocks(ws, runner, _count_value, [classes], OPEN))
-    n_closed = n_pore - n_open
     closed_count = int(np.count_nonzero(~is_open))
     touches = any(runner.map(_touches_border, ws.blocks, phases, ws.shape))
-    return {
-        "porosity_gas": n_pore / n_envelope,
-        "porosity_open": n_open / n_envelope,
-        "porosity_closed": n_closed / n_envelope,
-        "envelope_volume_mm3": n_envelope * voxel_mm3,
-        "solid_volume_mm3": n_solid * voxel_mm3,
-        "pore_volume_mm3": n_pore * voxel_mm3,
-        "open_pore_volume_mm3": n_open * voxel_mm3,
-        "closed_pore_volume_mm3": n_closed * voxel_mm3,
-        "closed_pore_count": closed_count,
-        "envelope_voxels": n_envelope,
-        "touches_border": touches,
-    }, classes
+    return porosity_from_counts(n_pore, n_solid, n_open, closed_count=closed_count,
+                                touches_border=touches, voxel_mm3=voxel_mm3), classes
 
 
 def _outside(solid, envelope):

@@ -20,7 +20,8 @@ import math
 
 import numpy as np
 
-from ..piece_frame import PieceFrame, _principal_axes, _projection_tables
+from ..piece_frame import (PieceFrame, _principal_axes, _projection_tables,
+                           moments_from_projections)
 from ..profiles import (_axial_binner, _axial_table, _bin_width, _n_bins, _radial_binner,
                         _rz_binner, _rz_table, _table, _trim, _window)
 from ..errors import InputError
@@ -41,7 +42,7 @@ def chunked_piece_frame(ws, runner, classes: str, *, spacing, long_axis="auto") 
         p_zy[z0:z1, y0:y1] += a
         p_zx[z0:z1, x0:x1] += b
         p_yx[y0:y1, x0:x1] += c
-    centroid, cov, n = _moments(p_zy, p_zx, p_yx, ws.shape, spacing)
+    centroid, cov, n = moments_from_projections(p_zy, p_zx, p_yx, ws.shape, spacing)
     axes = _principal_axes(cov, long_axis)
     sd = np.sqrt(np.maximum(np.einsum("ij,jk,ik->i", axes, cov, axes), 0.0))
     planes, tables = _projection_tables(ws.shape, spacing, centroid, axes)
@@ -60,28 +61,6 @@ def _projections(block, classes):
     env = np.asarray(open_array(classes)[block.slices]) != 0
     return (np.count_nonzero(env, axis=2), np.count_nonzero(env, axis=1),
             np.count_nonzero(env, axis=0))
-
-
-def _moments(p_zy, p_zx, p_yx, shape, spacing):
-    """Centroid, covariance and count from the projections (piece_frame's arithmetic)."""
-    p_zy = p_zy.astype(np.float64)
-    p_zx = p_zx.astype(np.float64)
-    p_yx = p_yx.astype(np.float64)
-    n = float(p_zy.sum())
-    if n == 0:
-        raise InputError("envelope: no voxel inside the piece (the envelope is empty)",
-                         "check the segmentation: the piece was not found")
-    coords = [np.arange(s) * h for s, h in zip(shape, spacing)]
-    marg = [p_zy.sum(axis=1), p_zy.sum(axis=0), p_zx.sum(axis=0)]
-    centroid = np.array([(m * c).sum() / n for m, c in zip(marg, coords)])
-    d = [c - c0 for c, c0 in zip(coords, centroid)]
-    cov = np.empty((3, 3))
-    for i in range(3):
-        cov[i, i] = (marg[i] * d[i] ** 2).sum() / n + spacing[i] ** 2 / 12.0
-    cov[0, 1] = cov[1, 0] = (d[0] @ p_zy @ d[1]) / n
-    cov[0, 2] = cov[2, 0] = (d[0] @ p_zx @ d[2]) / n
-    cov[1, 2] = cov[2, 1] = (d[1] @ p_yx @ d[2]) / n
-    return centroid, cov, int(n)
 
 
 def _extents(block, classes, planes_tables):

@@ -210,12 +210,7 @@ def coarsen(phases, *, spacing_um, kernel: Kernel, min_coverage: float = 0.5, gr
     0.5
     """
     spacing = as_spacing_um(spacing_um)
-    if not isinstance(kernel, Kernel):
-        raise InputError(f"kernel must be a ctpore Kernel; got {type(kernel).__name__}",
-                         "build one with Kernel('gaussian', width_um) or Kernel.from_section")
-    if not (isinstance(min_coverage, (int, float)) and 0 <= min_coverage <= 1):
-        raise InputError(f"min_coverage must be in [0, 1]; got {min_coverage!r}",
-                         "0.5 is the default")
+    _check_kernel(kernel, min_coverage)
     if A3_um3 is not None and not (math.isfinite(A3_um3) and A3_um3 > 0):
         raise InputError(f"A3_um3 must be a positive integral range in µm³; got {A3_um3!r}",
                          "take it from the REV study (rev.json integral_range_um3)")
@@ -252,9 +247,7 @@ def coarsen(phases, *, spacing_um, kernel: Kernel, min_coverage: float = 0.5, gr
         if den_sq is not None:
             den_sq = _sample(den_sq, index)
 
-    with np.errstate(invalid="ignore", divide="ignore"):
-        porosity = np.clip(num / den, 0.0, 1.0).astype(np.float32)
-    porosity[~(den > 0) | (den < min_coverage)] = np.nan
+    porosity = _porosity(num, den, min_coverage)
     sigma = None
     if A3_um3 is not None:
         with np.errstate(invalid="ignore", divide="ignore"):
@@ -264,6 +257,25 @@ def coarsen(phases, *, spacing_um, kernel: Kernel, min_coverage: float = 0.5, gr
     return CoarseField(porosity=porosity, coverage=np.asarray(den, np.float32), kernel=kernel,
                        spacing_um=field_spacing, origin_um=origin, sigma=sigma, points_um=points,
                        min_coverage=float(min_coverage), integral_range_um3=A3_um3)
+
+
+def _check_kernel(kernel, min_coverage):
+    """Raise InputError unless ``kernel`` is a Kernel and ``min_coverage`` is in [0, 1]."""
+    if not isinstance(kernel, Kernel):
+        raise InputError(f"kernel must be a ctpore Kernel; got {type(kernel).__name__}",
+                         "build one with Kernel('gaussian', width_um) or Kernel.from_section")
+    if not (isinstance(min_coverage, (int, float)) and 0 <= min_coverage <= 1):
+        raise InputError(f"min_coverage must be in [0, 1]; got {min_coverage!r}",
+                         "0.5 is the default")
+
+
+def _porosity(num, den, min_coverage):
+    """``(K*P)/(K*E)`` clipped to [0, 1] as float32, NaN where the coverage ``den`` is 0 or
+    below ``min_coverage``."""
+    with np.errstate(invalid="ignore", divide="ignore"):
+        porosity = np.clip(num / den, 0.0, 1.0).astype(np.float32)
+    porosity[~(den > 0) | (den < min_coverage)] = np.nan
+    return porosity
 
 
 def _sample(volume, index):

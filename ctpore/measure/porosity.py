@@ -8,7 +8,7 @@ from scipy import ndimage
 from ..errors import InputError
 from ..spacing import voxel_volume_um3
 
-__all__ = ["porosity", "open_pore_mask"]
+__all__ = ["porosity", "open_pore_mask", "check_phase_counts", "porosity_from_counts"]
 
 EXTERIOR, PORE, SOLID = 0, 1, 2
 _UM3_PER_MM3 = 1e9
@@ -76,8 +76,22 @@ def porosity(phases, *, spacing_um) -> dict:
     phases = _checked_phases(phases)
     n_pore = int(np.count_nonzero(phases == PORE))
     n_solid = int(np.count_nonzero(phases == SOLID))
-    n_envelope = n_pore + n_solid
-    if n_envelope == 0:
+    check_phase_counts(n_pore, n_solid)
+    labels, is_open = _nonsolid_components(phases)
+    n_open = int(np.count_nonzero(is_open[labels] & (phases == PORE)))
+    # Every non-solid component holds an exterior voxel (open) or only pore voxels (closed).
+    closed_count = int(is_open.size - 1 - np.count_nonzero(is_open[1:]))
+    return porosity_from_counts(n_pore, n_solid, n_open, closed_count=closed_count,
+                                touches_border=_touches_border(phases != EXTERIOR),
+                                voxel_mm3=voxel_mm3)
+
+
+def check_phase_counts(n_pore: int, n_solid: int) -> None:
+    """Raise InputError when the envelope is empty or holds no solid voxel.
+
+    Shared by :func:`porosity` and the chunked path, which counts the phases chunk by chunk.
+    """
+    if n_pore + n_solid == 0:
         raise InputError(
             "phases: the envelope is empty (no pore or solid voxel): there is no piece to measure",
             "check the threshold and the contrast of the stack: the solid was not found",
@@ -87,11 +101,26 @@ def porosity(phases, *, spacing_um) -> dict:
             "phases: no solid voxel was found inside the envelope",
             "check the threshold and the contrast of the stack (is the solid brighter than gas?)",
         )
-    labels, is_open = _nonsolid_components(phases)
-    n_open = int(np.count_nonzero(is_open[labels] & (phases == PORE)))
+
+
+def porosity_from_counts(n_pore: int, n_solid: int, n_open: int, *, closed_count: int,
+                         touches_border: bool, voxel_mm3: float) -> dict:
+    """The result dict of :func:`porosity` from its voxel counts (volume-fraction definitions
+    as there: fractions of the envelope, pore + solid voxels).
+
+    Parameters
+    ----------
+    n_pore, n_solid, n_open : int
+        Pore, solid and open pore voxel counts (``n_open <= n_pore``).
+    closed_count : int
+        Number of closed pores (non-solid components holding no exterior voxel).
+    touches_border : bool
+        Whether the envelope reaches a face of the image.
+    voxel_mm3 : float
+        Volume of one voxel in mm³.
+    """
+    n_envelope = n_pore + n_solid
     n_closed = n_pore - n_open
-    # Every non-solid component holds an exterior voxel (open) or only pore voxels (closed).
-    closed_count = int(is_open.size - 1 - np.count_nonzero(is_open[1:]))
     return {
         "porosity_gas": n_pore / n_envelope,
         "porosity_open": n_open / n_envelope,
@@ -103,7 +132,7 @@ def porosity(phases, *, spacing_um) -> dict:
         "closed_pore_volume_mm3": n_closed * voxel_mm3,
         "closed_pore_count": closed_count,
         "envelope_voxels": n_envelope,
-        "touches_border": _touches_border(phases != EXTERIOR),
+        "touches_border": touches_border,
     }
 
 

@@ -11,7 +11,8 @@ from pathlib import Path
 
 import numpy as np
 
-__all__ = ["save_segmentation_figures", "save_structure_figures", "PHASE_COLOURS"]
+__all__ = ["save_segmentation_figures", "save_structure_figures", "PHASE_COLOURS",
+           "draw_segmentation_figures", "middle_slices"]
 
 #: Phase overlay colours (pore, solid), chosen to stay distinct for the common colour-vision
 #: deficiencies (blue / orange pair).
@@ -41,14 +42,49 @@ def _rebin(counts, centres, n_bins):
 
 def save_segmentation_figures(result, folder: Path) -> list[Path]:
     """Save threshold_histogram.png and slices.png for an AnalysisResult into ``folder``."""
-    folder = Path(folder)
     grey = np.asarray(result.scan.data)
-    thr = result.summary["threshold"]
+    # the histogram is of the grey values the threshold was applied to
+    return draw_segmentation_figures(result.histogram, result.summary["threshold"],
+                                     middle_slices(grey, result.phases),
+                                     spacing_um=result.scan.spacing_um, folder=folder)
+
+
+def middle_slices(grey, phases) -> list[tuple[np.ndarray, np.ndarray]]:
+    """The middle slices across z, y and x of ``grey`` and ``phases`` as (grey, phases) pairs.
+
+    Only the three slices are read, so lazy arrays (zarr, dask, memory-mapped) work too.
+    """
+    nz, ny, nx = phases.shape
+    cuts = [(nz // 2, slice(None), slice(None)), (slice(None), ny // 2, slice(None)),
+            (slice(None), slice(None), nx // 2)]
+    return [(np.asarray(grey[cut]), np.asarray(phases[cut])) for cut in cuts]
+
+
+def draw_segmentation_figures(histogram, threshold: dict, slices, *, spacing_um,
+                              folder) -> list[Path]:
+    """Save threshold_histogram.png and slices.png into ``folder`` from reduced inputs.
+
+    Parameters
+    ----------
+    histogram : (counts, centres)
+        Fine grey-value histogram (rebinned to at most 256 bins for display).
+    threshold : dict
+        The summary's ``threshold`` entry (``value``, ``delta``, ``method``, ``porosity_low``,
+        ``porosity_high``).
+    slices : list of 3 (grey, phases) pairs
+        The middle slices across z, y and x, as from :func:`middle_slices`.
+    spacing_um : 3 floats
+        Voxel size (dz, dy, dx) in µm, for the axes.
+    folder : path
+        Output folder.
+    """
+    folder = Path(folder)
+    thr = threshold
     paths = []
 
     fig = _figure(6.4, 3.6)
     ax = fig.add_subplot()
-    counts, centres = result.histogram  # of the grey values the threshold was applied to
+    counts, centres = histogram
     counts, edges = _rebin(np.asarray(counts), np.asarray(centres, dtype=float), 256)
     ax.stairs(counts, edges, color="#555555", fill=True)
     ax.axvspan(thr["value"] - thr["delta"], thr["value"] + thr["delta"], color="#fdae61",
@@ -63,17 +99,15 @@ def save_segmentation_figures(result, folder: Path) -> list[Path]:
     paths.append(folder / "threshold_histogram.png")
     _save(fig, paths[-1])
 
-    phases = result.phases
-    dz, dy, dx = result.scan.spacing_um
-    nz, ny, nx = phases.shape
-    views = [
-        ("z", grey[nz // 2], phases[nz // 2], (0, nx * dx, ny * dy, 0), ("x (µm)", "y (µm)")),
-        ("y", grey[:, ny // 2], phases[:, ny // 2], (0, nx * dx, nz * dz, 0), ("x (µm)", "z (µm)")),
-        ("x", grey[:, :, nx // 2], phases[:, :, nx // 2], (0, ny * dy, nz * dz, 0),
-         ("y (µm)", "z (µm)")),
-    ]
+    dz, dy, dx = spacing_um
+    (g_z, _), (g_y, _), _ = slices
+    ny, nx = g_z.shape
+    nz = g_y.shape[0]
+    views = [("z", (0, nx * dx, ny * dy, 0), ("x (µm)", "y (µm)")),
+             ("y", (0, nx * dx, nz * dz, 0), ("x (µm)", "z (µm)")),
+             ("x", (0, ny * dy, nz * dz, 0), ("y (µm)", "z (µm)"))]
     fig = _figure(12, 4.2)
-    for i, (axis, g, p, extent, labels) in enumerate(views):
+    for i, ((axis, extent, labels), (g, p)) in enumerate(zip(views, slices)):
         ax = fig.add_subplot(1, 3, i + 1)
         ax.imshow(g, cmap="gray", extent=extent, interpolation="nearest")
         ax.contour(p == 2, levels=[0.5], colors=[PHASE_COLOURS["solid"]], linewidths=0.5,

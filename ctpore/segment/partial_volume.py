@@ -15,7 +15,7 @@ import numpy as np
 from ..errors import InputError
 from ..spacing import as_spacing_um
 
-__all__ = ["partial_volume_porosity"]
+__all__ = ["partial_volume_porosity", "pure_grey_estimate", "porosity_from_mixture"]
 
 _MEDIAN_SE = math.sqrt(math.pi / 2)  # SE of a median = sqrt(pi/2) * SD / sqrt(n), normal data
 _MAD_TO_SD = 1.4826  # robust SD = 1.4826 * median absolute deviation, normal data
@@ -133,7 +133,6 @@ def partial_volume_porosity(grey, envelope, *, gas_grey=None, solid_grey=None, c
         region = env | (d_out <= shell_um)
     else:
         region = env
-    n_shell = int(np.count_nonzero(region)) - n_env
     values = grey[region].astype(np.float64)
     if not np.all(np.isfinite(values)):
         raise InputError("the grey values hold NaN or infinite values in the envelope",
@@ -163,34 +162,79 @@ def partial_volume_porosity(grey, envelope, *, gas_grey=None, solid_grey=None, c
     for phase, given, peak in (("gas", gas_grey, getattr(choice, "gas_peak", math.nan)),
                                ("solid", solid_grey, getattr(choice, "solid_peak", math.nan))):
         if given is not None:
-            est, spread, se, n, source = float(given), math.nan, 0.0, 0, "given"
-        elif pops[phase].size >= 2:
-            v = pops[phase].astype(np.float64)
-            est = float(np.median(v))
-            spread = float(_MAD_TO_SD * np.median(np.abs(v - est)))
-            n = int(v.size)
-            se, source = _MEDIAN_SE * spread / math.sqrt(n), "deep_voxels"
-        elif math.isfinite(peak):
-            est, spread, se, n, source = float(peak), math.nan, 0.0, 0, "histogram_peak"
+            result[phase] = (float(given), math.nan, 0.0, 0, "given")
         else:
-            raise InputError(
-                f"no {phase} voxel lies {core_um:g} µm from the other phase, so the pure "
-                f"{phase} grey value cannot be estimated",
-                f"give {phase}_grey, or pass the threshold choice (its histogram peaks)")
-        result[phase] = (est, spread, se, n, source)
+            v = pops[phase].astype(np.float64)
+            result[phase] = pure_grey_estimate(phase, v.size, lambda v=v: _median_mad(v),
+                                               peak=peak, core_um=core_um)
 
-    g_gas, gas_spread, se_gas, n_gas, gas_source = result["gas"]
-    g_solid, solid_spread, se_solid, n_solid, solid_source = result["solid"]
+    return porosity_from_mixture(result["gas"], result["solid"],
+                                 lambda g_solid: np.sum(g_solid - values),
+                                 n_envelope=n_env, n_region=int(values.size),
+                                 shell_um=shell_um)
+
+
+def _median_mad(v):
+    est = float(np.median(v))
+    return est, np.median(np.abs(v - est))
+
+
+def pure_grey_estimate(phase: str, n: int, median_mad, *, peak: float, core_um: float) -> tuple:
+    """Pure-phase grey value of :func:`partial_volume_porosity` from its ``n`` deep voxels.
+
+    ``median_mad()`` returns the median of the deep voxels' grey values and their median
+    absolute deviation; it is called only when ``n >= 2``. Otherwise the histogram ``peak`` is
+    used when finite, else InputError is raised.
+
+    Returns
+    -------
+    tuple
+        ``(estimate, robust SD, standard error, voxels used, source)``, source "deep_voxels" or
+        "histogram_peak".
+    """
+    if n >= 2:
+        est, mad = median_mad()
+        spread = float(_MAD_TO_SD * mad)
+        return float(est), spread, _MEDIAN_SE * spread / math.sqrt(n), int(n), "deep_voxels"
+    if math.isfinite(peak):
+        return float(peak), math.nan, 0.0, 0, "histogram_peak"
+    raise InputError(
+        f"no {phase} voxel lies {core_um:g} µm from the other phase, so the pure "
+        f"{phase} grey value cannot be estimated",
+        f"give {phase}_grey, or pass the threshold choice (its histogram peaks)")
+
+
+def porosity_from_mixture(gas: tuple, solid: tuple, solid_excess, *, n_envelope: int,
+                          n_region: int, shell_um: float) -> dict:
+    """The result dict of :func:`partial_volume_porosity` from reduced inputs.
+
+    Parameters
+    ----------
+    gas, solid : tuple
+        ``(estimate, robust SD, standard error, voxels used, source)`` of each pure-phase grey
+        value (see :func:`pure_grey_estimate`).
+    solid_excess : callable
+        ``solid_excess(g_solid)`` = sum over the region (envelope + shell) of
+        ``g_solid - grey``.
+    n_envelope, n_region : int
+        Voxels in the envelope and in envelope + shell.
+    shell_um : float
+        Width of the exterior shell, reported as is.
+    """
+    g_gas, gas_spread, se_gas, n_gas, gas_source = gas
+    g_solid, solid_spread, se_solid, n_solid, solid_source = solid
     delta = g_solid - g_gas
     if not math.isfinite(delta) or delta == 0:
         raise InputError(f"gas grey {g_gas:g} and solid grey {g_solid:g} must differ",
                          "check gas_grey / solid_grey or the threshold")
-    gas_volume = float(np.sum(g_solid - values) / delta)
+    n_env = n_envelope
+    n_shell = n_region - n_env
+    gas_volume = float(solid_excess(g_solid) / delta)
     phi = (gas_volume - n_shell) / n_env
     dphi_ds = (1.0 - phi) / delta
     dphi_dg = (phi + n_shell / n_env) / delta
     noise = gas_spread if math.isfinite(gas_spread) else solid_spread
-    se_mean = (noise * math.sqrt(values.size) / (abs(delta) * n_env)
+    se_mean = (noise * math.sqrt(n_region) / (abs(delta) * n_env)
                if math.isfinite(noise) else 0.0)
     unc = math.sqrt((dphi_ds * se_solid) ** 2 + (dphi_dg * se_gas) ** 2 + se_mean ** 2)
     return {
