@@ -121,24 +121,10 @@ def cylinder():
     amplitude 0.1-0.2 at radii 12-38 pixels, the same in every slice. The skin is a bright
     band 3 pixels wide all round the axis: in polar coordinates it is a concentric structure,
     which a ring filter must not take for a ring."""
-    rng = np.random.default_rng(4)
-    nz, ny, nx, skin = 32, 96, 96, 3
-    yy, xx = np.mgrid[:ny, :nx]
-    r = np.hypot(yy - (ny - 1) / 2, xx - (nx - 1) / 2)
-    env = np.zeros((nz, ny, nx), bool)
-    env[3:nz - 3] = (r <= 40)[None]
-    inner = np.zeros_like(env)
-    inner[3 + skin:nz - 3 - skin] = (r <= 40 - skin)[None]
-    mark = np.zeros(env.shape, bool)
-    mark[tuple(rng.integers(0, [nz, ny, nx], (900, 3)).T)] = True
-    solid = env & ~((edt.edt(~mark) <= 4.0) & inner)
-    clean = GAS + (SOLID - GAS) * ndi.gaussian_filter(solid.astype(np.float64), 1.0)
-    clean += rng.normal(0, 0.05, clean.shape)
-    rings = np.zeros((ny, nx))
-    for radius, amp in zip(rng.uniform(12, 38, 8),
-                           rng.uniform(0.1, 0.2, 8) * rng.choice([-1, 1], 8)):
-        rings += amp * np.exp(-0.5 * ((r - radius) / 0.6) ** 2)
-    return env, clean, clean + rings[None]
+    from ring_cylinder import ringed_cylinder
+
+    _, env, clean, ringed = ringed_cylinder(4)
+    return env, clean, ringed
 
 
 def test_concentric_skin_is_not_taken_for_a_ring(cylinder):

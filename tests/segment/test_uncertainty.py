@@ -18,6 +18,8 @@ from ctpore.segment.threshold import ThresholdChoice
 from ctpore.segment.uncertainty import (
     _volume_preserving_values, segmentation_uncertainty, threshold_span)
 
+from ring_cylinder import ringed_cylinder  # tests/segment helper, shared with test_rings
+
 GAS, SOLID = 0.2, 0.8
 SPACING = 10.0
 # A range wider than 0.1 in porosity tells a user little: common practice, no source.
@@ -83,28 +85,10 @@ def _cupped_ball(seed=0, n=80, radius=34.0, cup=0.15, skin=3.0):
     return solid, env, grey + rng.normal(0, 0.06, blurred.shape)
 
 
-def _ringed_cylinder(seed=4, nz=32, ny=96, nx=96, skin=3):
-    """Cylindrical piece (radius 40 pixels, axis z) with a 3-voxel skin and overlapping
-    spherical pores (radius 4) inside; blur SD 1, noise SD 0.05 on a contrast of 0.6; then 8
-    rings of width ~1 pixel and amplitude 0.1-0.2 about the slice centre, the same in every
-    slice (one faulty detector column per ring)."""
-    rng = np.random.default_rng(seed)
-    yy, xx = np.mgrid[:ny, :nx]
-    r = np.hypot(yy - (ny - 1) / 2, xx - (nx - 1) / 2)
-    env = np.zeros((nz, ny, nx), bool)
-    env[3:nz - 3] = (r <= 40)[None]
-    inner = np.zeros_like(env)
-    inner[3 + skin:nz - 3 - skin] = (r <= 40 - skin)[None]
-    mark = np.zeros(env.shape, bool)
-    mark[tuple(rng.integers(0, [nz, ny, nx], (900, 3)).T)] = True
-    solid = env & ~((edt.edt(~mark) <= 4.0) & inner)
-    grey = GAS + (SOLID - GAS) * ndi.gaussian_filter(solid.astype(np.float64), 1.0)
-    grey += rng.normal(0, 0.05, grey.shape)
-    rings = np.zeros((ny, nx))
-    for radius, amp in zip(rng.uniform(12, 38, 8),
-                           rng.uniform(0.1, 0.2, 8) * rng.choice([-1, 1], 8)):
-        rings += amp * np.exp(-0.5 * ((r - radius) / 0.6) ** 2)
-    return solid, env, grey + rings[None]
+def _ringed_cylinder(seed=4):
+    """The ringed cylinder of ring_cylinder.py: (solid, envelope, ringed grey)."""
+    solid, env, _, ringed = ringed_cylinder(seed)
+    return solid, env, ringed
 
 
 def _sharp_foam(seed=3, n=40, ss=4, pore_r=3.5, n_pores=40, margin=5, skin=3):
