@@ -12,6 +12,7 @@ from skimage.morphology import local_maxima
 from skimage.segmentation import watershed
 
 from ..errors import InputError
+from ..segment.clean import label_sizes
 from ..spacing import as_spacing_um
 from .porosity import open_pore_mask
 
@@ -343,7 +344,7 @@ def _trim_nearby(markers, n, dist, spacing) -> np.ndarray:
 
 def _apply_min_volume(labels: np.ndarray, min_voxels: float) -> tuple[np.ndarray, int]:
     """Merge or drop cells under ``min_voxels`` voxels; returns new labels 1..n and the drops."""
-    counts = np.bincount(labels.ravel())
+    counts = label_sizes(labels)
     if min_voxels <= 0 or counts.size <= 1:
         return labels, 0
     small = counts < min_voxels

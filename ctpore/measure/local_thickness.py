@@ -279,12 +279,13 @@ def _checked_threads(parallel) -> int:
 
 
 def _phase_values(thickness_map, mask) -> np.ndarray:
-    t = np.asarray(thickness_map, dtype=np.float64)
+    t = np.asarray(thickness_map)
     m = np.asarray(mask, dtype=bool)
     if t.shape != m.shape:
         raise InputError(f"thickness_map shape {t.shape} differs from mask shape {m.shape}",
                          "pass the mask the thickness map was computed from")
-    return t[m]
+    # Select first, widen after: a float64 copy of the whole map would be 8 bytes per voxel.
+    return t[m].astype(np.float64)
 
 
 # --- distinct distances ---------------------------------------------------------------------

@@ -78,7 +78,8 @@ def porosity(phases, *, spacing_um) -> dict:
     n_solid = int(np.count_nonzero(phases == SOLID))
     check_phase_counts(n_pore, n_solid)
     labels, is_open = _nonsolid_components(phases)
-    n_open = int(np.count_nonzero(is_open[labels] & (phases == PORE)))
+    n_open = sum(int(np.count_nonzero(is_open[labels[sl]] & (phases[sl] == PORE)))
+                 for sl in _slabs(phases.shape[0]))
     # Every non-solid component holds an exterior voxel (open) or only pore voxels (closed).
     closed_count = int(is_open.size - 1 - np.count_nonzero(is_open[1:]))
     return porosity_from_counts(n_pore, n_solid, n_open, closed_count=closed_count,
@@ -172,12 +173,24 @@ def _nonsolid_components(phases: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     ``is_open[k]`` is True when component ``k`` touches the exterior, the image border included;
     ``is_open[0]`` (the solid) is False.
     """
-    padded = np.pad(phases, 1, mode="constant", constant_values=EXTERIOR)
-    labels, n = ndimage.label(padded != SOLID, structure=_NONSOLID_STRUCTURE)
+    # Labelled without padding (padding would copy the image): a component is open when it
+    # holds an exterior voxel or a voxel on the image border, which is exactly what joining
+    # it to an exterior frame around the image would do. Slab by slab, so no image-sized
+    # temporary beyond the labels is made.
+    labels, n = ndimage.label(phases != SOLID, structure=_NONSOLID_STRUCTURE)
     is_open = np.zeros(n + 1, dtype=bool)
-    is_open[labels[padded == EXTERIOR]] = True
+    for sl in _slabs(phases.shape[0]):
+        is_open[labels[sl][phases[sl] == EXTERIOR]] = True
+    for face in (labels[0], labels[-1], labels[:, 0], labels[:, -1], labels[:, :, 0],
+                 labels[:, :, -1]):
+        is_open[face] = True
     is_open[0] = False
-    return labels[1:-1, 1:-1, 1:-1], is_open
+    return labels, is_open
+
+
+def _slabs(nz: int, step: int = 32):
+    """Slices of ``step`` planes along z covering ``range(nz)``."""
+    return [slice(z, z + step) for z in range(0, nz, step)]
 
 
 def _touches_border(mask: np.ndarray) -> bool:

@@ -9,7 +9,7 @@ from ..errors import InputError
 from ..recipe import CleanSection
 from ..spacing import as_spacing_um, voxel_volume_um3
 
-__all__ = ["clean_solid", "SOLID_CONNECTIVITY", "PORE_CONNECTIVITY"]
+__all__ = ["clean_solid", "label_sizes", "SOLID_CONNECTIVITY", "PORE_CONNECTIVITY"]
 
 SOLID_CONNECTIVITY = ndi.generate_binary_structure(3, 3)
 """26-connectivity: solid voxels touching by a face, an edge or a corner are connected."""
@@ -62,27 +62,49 @@ def clean_solid(solid, *, spacing_um, section: CleanSection) -> np.ndarray:
                          "pass the thresholded stack")
     voxel_um3 = voxel_volume_um3(spacing)
     out = np.array(solid, dtype=bool, copy=True)
+    # One int32 label image reused by the three labellings: at most one is alive at a time, so
+    # the peak is the mask, the labels and one boolean temporary (6 bytes per voxel).
+    labels = np.empty(out.shape, dtype=np.int32)
 
     if section.min_solid_speck_um3 > 0:
-        labels, _ = ndi.label(out, structure=SOLID_CONNECTIVITY)
-        small = np.bincount(labels.ravel()) * voxel_um3 < section.min_solid_speck_um3
+        n = ndi.label(out, structure=SOLID_CONNECTIVITY, output=labels)
+        small = label_sizes(labels, n) * voxel_um3 < section.min_solid_speck_um3
         small[0] = False
-        out[small[labels]] = False
+        if small.any():
+            out[small[labels]] = False
 
     if section.min_pore_speck_um3 > 0:
-        labels, _ = ndi.label(~out, structure=PORE_CONNECTIVITY)
-        small = np.bincount(labels.ravel()) * voxel_um3 < section.min_pore_speck_um3
+        np.logical_not(out, out=out)
+        n = ndi.label(out, structure=PORE_CONNECTIVITY, output=labels)
+        np.logical_not(out, out=out)
+        small = label_sizes(labels, n) * voxel_um3 < section.min_pore_speck_um3
         small[0] = False
         small[_border_labels(labels)] = False
-        out[small[labels]] = True
+        if small.any():
+            out[small[labels]] = True
 
     if section.keep_largest_solid:
-        labels, n = ndi.label(out, structure=SOLID_CONNECTIVITY)
+        n = ndi.label(out, structure=SOLID_CONNECTIVITY, output=labels)
         if n > 1:
-            sizes = np.bincount(labels.ravel())
+            sizes = label_sizes(labels, n)
             sizes[0] = 0
-            out = labels == np.argmax(sizes)
+            np.equal(labels, np.argmax(sizes), out=out)
     return out
+
+
+def label_sizes(labels: np.ndarray, n: int | None = None, *, planes: int = 16) -> np.ndarray:
+    """Voxel count of each label 0..n, as ``np.bincount(labels.ravel())`` gives it.
+
+    ``np.bincount`` casts its input to int64, which for an int32 label image is a copy of
+    8 bytes per voxel; counting a few planes at a time keeps that copy small.
+    """
+    labels = np.asarray(labels)
+    if n is None:
+        n = int(labels.max()) if labels.size else 0
+    counts = np.zeros(n + 1, dtype=np.int64)
+    for z in range(0, labels.shape[0], planes):
+        counts += np.bincount(labels[z:z + planes].ravel(), minlength=n + 1)
+    return counts
 
 
 def _border_labels(labels: np.ndarray) -> np.ndarray:

@@ -130,13 +130,19 @@ def partial_volume_porosity(grey, envelope, *, gas_grey=None, solid_grey=None, c
     if shell_um > 0:
         d_out = edt.edt(np.ascontiguousarray(~env), anisotropy=spacing, black_border=False,
                         parallel=1)
-        region = env | (d_out <= shell_um)
+        region = d_out <= shell_um
+        del d_out
+        region |= env
     else:
         region = env
-    values = grey[region].astype(np.float64)
-    if not np.all(np.isfinite(values)):
+    # Only the count and the exact sum of the region's grey values enter the mixture, so no
+    # float copy of the region is kept (a whole-piece float64 copy is 8 bytes per voxel).
+    values = grey[region]
+    n_region = int(values.size)
+    if values.dtype.kind == "f" and not np.all(np.isfinite(values)):
         raise InputError("the grey values hold NaN or infinite values in the envelope",
                          "replace them or re-export the reconstruction")
+    sum_grey = _exact_sum(values)
 
     bright = solid_is_bright
     if choice is not None:
@@ -144,21 +150,33 @@ def partial_volume_porosity(grey, envelope, *, gas_grey=None, solid_grey=None, c
         bright = bool(choice.details.get("solid_is_bright", solid_is_bright))
     elif gas_grey is None or solid_grey is None:
         from skimage.filters import threshold_otsu
-        threshold = float(threshold_otsu(values))
+        threshold = float(threshold_otsu(values.astype(np.float64)))
     else:
         threshold = math.nan
+    del values
 
     result = {}
     pops = {}
     if gas_grey is None or solid_grey is None:
         solid = (grey > threshold) if bright else (grey < threshold)
-        # edt gives each True voxel its distance to the nearest False voxel
+        # edt gives each True voxel its distance to the nearest False voxel; one distance map
+        # at a time, each dropped once its deep voxels are taken.
         d_gas = edt.edt(np.ascontiguousarray(~solid), anisotropy=spacing, black_border=False,
                         parallel=1)
+        deep = d_gas >= core_um
+        del d_gas
+        deep &= region
+        deep &= ~solid
+        pops["gas"] = grey[deep]
+        del region
         d_solid = edt.edt(np.ascontiguousarray(solid), anisotropy=spacing,
                           black_border=False, parallel=1)
-        pops["gas"] = grey[region & ~solid & (d_gas >= core_um)]
-        pops["solid"] = grey[env & solid & (d_solid >= core_um)]
+        np.greater_equal(d_solid, core_um, out=deep)
+        del d_solid
+        deep &= env
+        deep &= solid
+        pops["solid"] = grey[deep]
+        del deep, solid
     for phase, given, peak in (("gas", gas_grey, getattr(choice, "gas_peak", math.nan)),
                                ("solid", solid_grey, getattr(choice, "solid_peak", math.nan))):
         if given is not None:
@@ -169,9 +187,18 @@ def partial_volume_porosity(grey, envelope, *, gas_grey=None, solid_grey=None, c
                                                peak=peak, core_um=core_um)
 
     return porosity_from_mixture(result["gas"], result["solid"],
-                                 lambda g_solid: np.sum(g_solid - values),
-                                 n_envelope=n_env, n_region=int(values.size),
-                                 shell_um=shell_um)
+                                 lambda g_solid: n_region * g_solid - sum_grey,
+                                 n_envelope=n_env, n_region=n_region, shell_um=shell_um)
+
+
+def _exact_sum(values, block: int = 1 << 20) -> float:
+    """Sum of grey values in float64 blocks (pairwise within a block), blocks added by fsum.
+
+    Exact for integer stacks (a block's sum stays far below 2**53); never holds a float copy
+    of more than one block.
+    """
+    return math.fsum(float(values[i:i + block].sum(dtype=np.float64))
+                     for i in range(0, values.size, block))
 
 
 def _median_mad(v):

@@ -133,3 +133,18 @@ def test_input_not_modified_and_errors():
         clean_solid(solid[0], spacing_um=ANISO, section=_section())
     with pytest.raises(InputError, match="min_solid_speck_um3"):
         clean_solid(solid, spacing_um=ANISO, section=_section(solid_um3=-1.0))
+
+
+def test_label_sizes_equals_numpy_bincount():
+    # Reference: numpy.bincount over the flattened labels (what label_sizes replaces, in
+    # slabs, to avoid numpy's int64 copy of the whole label image).
+    from scipy import ndimage as ndi
+
+    from ctpore.segment.clean import label_sizes
+
+    rng = np.random.default_rng(3)
+    labels, n = ndi.label(rng.random((37, 21, 19)) > 0.6)
+    assert labels.dtype == np.int32
+    expected = np.bincount(labels.ravel(), minlength=n + 1)
+    np.testing.assert_array_equal(label_sizes(labels, n, planes=4), expected)
+    np.testing.assert_array_equal(label_sizes(labels), expected)
