@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import sys
+
 import numpy as np
 import pytest
 
@@ -61,3 +63,28 @@ def test_peak_memory_sees_an_allocation():
         time.sleep(0.05)
         del block
     assert m.peak_bytes - m.start_bytes > 150 * 2**20
+    assert m.peak_anonymous_bytes > 150 * 2**20
+
+
+@pytest.mark.skipif(not sys.platform.startswith("linux"), reason="psutil's 'shared' is Linux")
+def test_anonymous_peak_leaves_out_a_memory_mapped_file(tmp_path):
+    # Reading a memory-mapped file fills the page cache mapped into the process: RSS rises by
+    # the file's size, the anonymous part does not (Linux /proc accounting, proc(5) RssFile).
+    pytest.importorskip("psutil")
+    from ctpore.chunked.memory import PeakMemory
+
+    path = tmp_path / "stack.raw"
+    size = 160 * 2**20
+    with open(path, "wb") as f:
+        for _ in range(size // 2**20):
+            f.write(b"\x01" * 2**20)
+    mapped = np.memmap(path, dtype=np.uint8, mode="r")
+    with PeakMemory(interval_s=0.005) as m:
+        total = int(mapped.sum(dtype=np.int64))
+        import time
+
+        time.sleep(0.05)
+    assert total == size
+    assert m.peak_bytes - m.start_bytes > 100 * 2**20
+    assert m.peak_anonymous_bytes - m.start_anonymous_bytes < 60 * 2**20
+    del mapped
