@@ -41,7 +41,8 @@ def _build_parser() -> argparse.ArgumentParser:
     a.add_argument("--json", action="store_true", help="print summary.json to standard output")
     a.add_argument("--memory", metavar="SIZE", help="memory budget, e.g. 4GB or 512MiB: a stack "
                    "whose in-memory analysis would need more is analysed chunk by chunk on disk "
-                   "(default: 80%% of the memory available)")
+                   "(default: 80%% of the memory available; with --scheduler, the budget of each "
+                   "worker, lowered to the workers' own memory limit)")
     a.add_argument("--scheduler", metavar="ADDRESS", help="dask.distributed scheduler address "
                    "(e.g. tcp://127.0.0.1:8786) for the chunked analysis (implies chunked)")
 

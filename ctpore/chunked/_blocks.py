@@ -138,6 +138,28 @@ class Runner:
         address = getattr(address, "address", None) or "?"
         return f"dask.distributed {address}"
 
+    def task_budget(self, memory_limit_bytes=None) -> tuple[int | None, int | None]:
+        """Concurrent tasks per process and that process's memory budget, for the chunk choice.
+
+        Local schedulers: ``(None, memory_limit_bytes)`` — the CPUs of this machine run the
+        tasks within the given budget. A ``dask.distributed`` Client: the largest thread count
+        of a worker (its tasks run at once and share its memory) and the smallest worker
+        memory limit, capped by ``memory_limit_bytes`` when that is given (the budget is then
+        read per worker). Workers without a memory limit impose none.
+        """
+        if isinstance(self.scheduler, str):
+            return None, memory_limit_bytes
+        from ..errors import InputError
+
+        workers = list(self.scheduler.scheduler_info(n_workers=-1).get("workers", {}).values())
+        if not workers:
+            raise InputError(f"the dask cluster at {self.name} has no workers",
+                             "start workers (dask worker ADDRESS) before the analysis")
+        threads = max(int(w.get("nthreads") or 1) for w in workers)
+        limits = [int(w["memory_limit"]) for w in workers if w.get("memory_limit")]
+        budgets = [b for b in (memory_limit_bytes, min(limits, default=None)) if b]
+        return threads, (min(budgets) if budgets else None)
+
     def share(self, value):
         """Wrap a large argument once so that every task refers to one graph key."""
         import dask

@@ -72,7 +72,10 @@ def analyze_chunked(stack, *, spacing_um=None, recipe=None, chunks=None,
     chunks : 3 ints, optional
         Chunk shape; default from :func:`ctpore.chunked.memory.choose_chunks`.
     memory_limit_bytes : int, optional
-        Budget for the chunk choice and for the depth-profile halo cap.
+        Budget for the chunk choice and for the depth-profile halo cap. With a
+        ``dask.distributed`` scheduler it is the budget of each worker, lowered to the
+        workers' own memory limit when that is smaller, and the chunks are sized for a
+        worker's thread count (:meth:`Runner.task_budget`).
     scheduler : None, str or dask.distributed.Client
         Where the tasks run (see :class:`ctpore.chunked._blocks.Runner`); threads by default.
     out : str or Path, optional
@@ -114,12 +117,18 @@ def analyze_chunked(stack, *, spacing_um=None, recipe=None, chunks=None,
     spacing = scan.spacing_um
     halos = {"denoise": denoise_halo(recipe.denoise, spacing),
              "envelope_closing": envelope_halo(recipe.envelope, spacing)}
-    if chunks is None:
-        chunks = choose_chunks(scan.shape, scan.dtype, memory_limit_bytes,
-                               halo=tuple(max(h) for h in zip(*halos.values())))
-    chunks = _checked_chunks(chunks, scan.shape)
-    parent = temp_dir if temp_dir is not None else (Path(out).parent if out else None)
     runner = Runner(scheduler)
+    try:
+        workers, budget = runner.task_budget(memory_limit_bytes)
+        if chunks is None:
+            chunks = choose_chunks(scan.shape, scan.dtype, budget,
+                                   halo=tuple(max(h) for h in zip(*halos.values())),
+                                   workers=workers)
+        chunks = _checked_chunks(chunks, scan.shape)
+    except BaseException:
+        runner.close()
+        raise
+    parent = temp_dir if temp_dir is not None else (Path(out).parent if out else None)
     progress = Progress(5 + (recipe.denoise.method != "none") + bool(recipe.structure.enabled)
                         + bool(recipe.profiles.enabled) + (out is not None), quiet=quiet)
     ws = Workspace(scan.shape, chunks, parent=parent)
@@ -173,11 +182,11 @@ def analyze_chunked(stack, *, spacing_um=None, recipe=None, chunks=None,
                 with step("profiles: depth, radial, axial, r-z map"):
                     profiles = chunked_profiles(
                         ws, runner, classes, spacing=spacing, section=recipe.profiles,
-                        max_depth_halo_um=_depth_cap(memory_limit_bytes, chunks, spacing))
+                        max_depth_halo_um=_depth_cap(budget, chunks, spacing, workers))
                 summary["piece_frame"] = profiles["frame"].to_dict()
                 if profiles.get("depth") is None:
                     summary["warnings"].append(profiles["depth_note"])
-            summary["warnings"].extend(_budget_warnings(halos, chunks, memory_limit_bytes))
+            summary["warnings"].extend(_budget_warnings(halos, chunks, budget, workers))
             summary["warnings"].append(
                 "chunked analysis: not computed here: " + ", ".join(NOT_COMPUTED)
                 + "; run in memory (without --memory) for them")
@@ -189,6 +198,8 @@ def analyze_chunked(stack, *, spacing_um=None, recipe=None, chunks=None,
             "peak_memory_bytes_by_step": {k: int(v) for k, v in memory.by_step.items()},
             "start_memory_bytes": int(memory.start_bytes),
             "memory_limit_bytes": memory_limit_bytes,
+            "task_budget": {"concurrent_tasks_per_process": workers or _workers_here(),
+                            "memory_bytes_per_process": budget},
             "scheduler": runner.name,
             "memory_measure": "resident set size of this process and its children, sampled "
                               "every 20 ms; 'anonymous' leaves out file-backed pages (the "
@@ -337,7 +348,13 @@ def _pad(values, n):
     return out
 
 
-def _budget_warnings(halos, chunks, memory_limit_bytes) -> list[str]:
+def _workers_here() -> int:
+    from .memory import _workers
+
+    return _workers(None)
+
+
+def _budget_warnings(halos, chunks, memory_limit_bytes, workers=None) -> list[str]:
     """Steps whose extended blocks may need more than the memory budget."""
     from .memory import BASELINE_BYTES, TASK_BYTES_PER_VOXEL, _workers
 
@@ -345,7 +362,7 @@ def _budget_warnings(halos, chunks, memory_limit_bytes) -> list[str]:
         return []
     out = []
     for step, halo in halos.items():
-        need = BASELINE_BYTES + _workers(None) * TASK_BYTES_PER_VOXEL * math.prod(
+        need = BASELINE_BYTES + _workers(workers) * TASK_BYTES_PER_VOXEL * math.prod(
             c + 2 * h for c, h in zip(chunks, halo))
         if need > memory_limit_bytes:
             out.append(f"the {step} step reads chunks with a halo of {list(halo)} voxels "
@@ -354,13 +371,13 @@ def _budget_warnings(halos, chunks, memory_limit_bytes) -> list[str]:
     return out
 
 
-def _depth_cap(memory_limit_bytes, chunks, spacing) -> float:
+def _depth_cap(memory_limit_bytes, chunks, spacing, workers=None) -> float:
     """Largest halo (µm) a depth task may read within the budget (inf without a budget)."""
     from .memory import BASELINE_BYTES, TASK_BYTES_PER_VOXEL, _workers
 
     if memory_limit_bytes is None:
         return math.inf
-    per_task = (memory_limit_bytes - BASELINE_BYTES) / _workers(None)
+    per_task = (memory_limit_bytes - BASELINE_BYTES) / _workers(workers)
     side = (max(per_task, 0) / TASK_BYTES_PER_VOXEL) ** (1 / 3)
     halo_voxels = max(0.0, (side - max(chunks)) / 2)
     return halo_voxels * min(spacing)

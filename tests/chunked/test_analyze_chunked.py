@@ -131,4 +131,22 @@ def test_porosity_on_a_local_cluster(small, tmp_path):
         ws.array("phases")[...] = ref.phases
         measured, _ = chunked_porosity(ws, runner, path, spacing_um=SPACING)
         assert runner.name.startswith("dask.distributed tcp://")
+        # The chunk choice reads the workers, not this machine: 1 thread and 1 GiB each;
+        # a --memory budget is per worker and lowered to the workers' own limit.
+        budgets = [runner.task_budget(b) for b in (None, 4 * 10**9, 5 * 10**8)]
     assert measured == porosity(ref.phases, spacing_um=SPACING)
+    assert budgets == [(1, 2**30), (1, 2**30), (1, 5 * 10**8)]
+
+
+def test_chunks_fit_the_worker_budget():
+    # choose_chunks with one task per worker process under 1 GiB: the chosen cube plus its
+    # halo fits, a cube 16 voxels larger would not (the rule of ctpore.chunked.memory).
+    from ctpore.chunked.memory import BASELINE_BYTES, TASK_BYTES_PER_VOXEL, choose_chunks
+
+    halo = 16
+    side = choose_chunks((4096,) * 3, np.uint16, 2**30, halo=(halo,) * 3, workers=1)[0]
+    per_voxel = TASK_BYTES_PER_VOXEL + 2
+    assert BASELINE_BYTES + per_voxel * (side + 2 * halo) ** 3 <= 2**30
+    assert BASELINE_BYTES + per_voxel * (side + 16 + 2 * halo) ** 3 > 2**30
+    two = choose_chunks((4096,) * 3, np.uint16, 2**30, halo=(halo,) * 3, workers=2)[0]
+    assert two < side
