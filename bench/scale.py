@@ -2,7 +2,8 @@
 in-memory ``ctpore.analyze`` on generated 16-bit stacks of one porous piece, at growing sizes.
 
 Run by hand (not a test):
-    python bench/scale.py [--sizes 512 1024] [--repeat 1] [--keep] [--json FILE]
+    python bench/scale.py [--sizes 512 1024] [--repeat 1] [--modes in-memory chunked]
+                          [--save-runs DIR] [--add-runs FILE ...] [--keep] [--json FILE]
 
 What is compared. Both runs compute the same steps with the same recipe (default recipe,
 10 µm voxels, envelope closing r = 150 µm = 15 voxels, no denoising, profiles on):
@@ -18,7 +19,10 @@ result folder (``out=None``): the times are computation, reading the stack inclu
 
 Each analysis runs in its own child process; its peak memory is that process's peak resident
 set size (``getrusage(RUSAGE_SELF).ru_maxrss`` read at its end), so runs do not see each
-other's peaks. Pages of the memory-mapped input stack count in the resident set too.
+other's peaks. Pages of the memory-mapped input stack and of the chunked path's work files
+count in the resident set too, so each run also reports its anonymous peak (RSS minus
+file-backed pages, sampled every 50 ms by ``ctpore.chunked.memory.PeakMemory``): the memory
+the work itself holds, which is what a memory budget has to bound.
 
 The stack is generated slab by slab (32 slices plus halos) and streamed page by page into an
 uncompressed OME-TIFF, so the generator never holds the whole volume: a smooth Gaussian
@@ -28,8 +32,10 @@ thresholded at its 30 % quantile (pores = 70 % of the body, as in bench/analyze_
 inside a prolate ellipsoid; grey values 26000 (solid) / 6000 (gas), blurred by one voxel and
 with Gaussian noise (σ = 1200) seeded per slice.
 
-The in-memory run is skipped when ``ctpore.chunked.in_memory_peak_bytes`` (55 bytes per voxel,
-the whole analyze) exceeds 80 % of the memory available now.
+The in-memory run is skipped when its estimated peak (``IN_MEMORY_BENCH_BYTES_PER_VOXEL``
+bytes per voxel, measured) exceeds 90 % of the memory available now. A long run of one mode can
+be saved (``--save-runs DIR``) and reported later beside the other mode's
+(``--modes in-memory --add-runs DIR/chunked-1024-*.json``).
 """
 
 from __future__ import annotations
@@ -50,6 +56,11 @@ from scipy import ndimage
 
 SPACING_UM = (10.0, 10.0, 10.0)
 MEMORY_LIMIT_BYTES = 2 * 1024**3
+MODES = ("in-memory", "chunked")
+#: Peak bytes per voxel of this benchmark's in-memory run (no cells/surface/topology; local
+#: thickness of pores and walls), measured at 384³ and 512³, with margin; it decides whether
+#: the in-memory run is attempted.
+IN_MEMORY_BENCH_BYTES_PER_VOXEL = 18
 SLAB = 32
 #: Standard normal quantile at 0.3 (pores are the 70 % of the field above it).
 Z_030 = -0.5244005127080407
@@ -138,9 +149,27 @@ def write_stack(path: Path, n: int, seed: int = 0) -> Path:
 def _child(mode: str, stack: str, out_json: str, workdir: str):
     import resource
 
+    from ctpore.chunked.memory import PeakMemory
+
+    with PeakMemory(interval_s=0.05) as sampler:
+        t0 = time.perf_counter()
+        summary, timings, chunked = _work(mode, stack, workdir)
+        wall = time.perf_counter() - t0
+    peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss * 1024
+    keep = {k: summary.get(k) for k in POROSITY_KEYS + THICKNESS_KEYS}
+    keep["threshold"] = summary["threshold"]
+    keep["partial_volume"] = summary.get("partial_volume")
+    Path(out_json).write_text(json.dumps({"mode": mode, "size": int(tifffile_shape(stack)[0]),
+                                          "wall_s": wall, "peak_rss_bytes": peak,
+                                          "peak_anonymous_bytes": sampler.peak_anonymous_bytes,
+                                          "timings_s": timings, "summary": keep,
+                                          "chunked": chunked}, default=float))
+
+
+def _work(mode: str, stack: str, workdir: str):
+    """One analysis; returns (summary, timings_s, chunked facts or None)."""
     import ctpore
 
-    t0 = time.perf_counter()
     if mode == "in-memory":
         from ctpore.measure.local_thickness import local_thickness, thickness_statistics
 
@@ -156,21 +185,19 @@ def _child(mode: str, stack: str, out_json: str, workdir: str):
             del mask
         timings = dict(res.timings_s)
         timings["local thickness of pores and walls"] = time.perf_counter() - t1
-        chunked = None
-    else:
-        from ctpore.chunked import analyze_chunked
+        return summary, timings, None
+    from ctpore.chunked import analyze_chunked
 
-        res = analyze_chunked(stack, recipe=_recipe(CHUNKED_RECIPE, workdir),
-                              memory_limit_bytes=MEMORY_LIMIT_BYTES, temp_dir=workdir)
-        summary, timings, chunked = res.summary, dict(res.timings_s), res.summary["chunked"]
-    wall = time.perf_counter() - t0
-    peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss * 1024
-    keep = {k: summary.get(k) for k in POROSITY_KEYS + THICKNESS_KEYS}
-    keep["threshold"] = summary["threshold"]
-    keep["partial_volume"] = summary.get("partial_volume")
-    Path(out_json).write_text(json.dumps({"mode": mode, "wall_s": wall, "peak_rss_bytes": peak,
-                                          "timings_s": timings, "summary": keep,
-                                          "chunked": chunked}, default=float))
+    res = analyze_chunked(stack, recipe=_recipe(CHUNKED_RECIPE, workdir),
+                          memory_limit_bytes=MEMORY_LIMIT_BYTES, temp_dir=workdir)
+    return res.summary, dict(res.timings_s), res.summary["chunked"]
+
+
+def tifffile_shape(stack) -> tuple:
+    import tifffile
+
+    with tifffile.TiffFile(stack) as tif:
+        return tuple(tif.series[0].shape)
 
 
 def _recipe(text, workdir):
@@ -181,13 +208,17 @@ def _recipe(text, workdir):
     return load_recipe(path)
 
 
-def run_child(mode: str, stack: Path, tmp: Path) -> dict:
+def run_child(mode: str, stack: Path, tmp: Path, save_dir: Path | None = None) -> dict:
     out = tmp / f"{mode}-{time.monotonic_ns()}.json"
     load = os.getloadavg()[0]
     subprocess.run([sys.executable, __file__, "--child", mode, str(stack), str(out), str(tmp)],
                    check=True)
     result = json.loads(out.read_text())
     result["load_before"] = load
+    if save_dir is not None:
+        save_dir.mkdir(parents=True, exist_ok=True)
+        (save_dir / f"{mode}-{result['size']}-{time.strftime('%Y%m%dT%H%M%S')}.json").write_text(
+            json.dumps(result, default=float))
     return result
 
 
@@ -218,52 +249,59 @@ def _median(values):
     return statistics.median(values) if values else float("nan")
 
 
+def _gb_median(runs, key):
+    values = [r[key] for r in runs if r.get(key) is not None]
+    return _median(values) / 1e9 if values else float("nan")
+
+
 def report(n: int, runs: dict, generated_s: float, skipped_note: str | None) -> dict:
     """Print the medians for one size; return them."""
-    gb = 1e9
-    mem, chk = runs.get("in-memory", []), runs["chunked"]
-    c0 = chk[0]["chunked"]
-    chunks = c0["chunk_shape_voxels"]
-    n_chunks = math.prod(math.ceil(n / c) for c in chunks)
-    row = {"size": n, "chunk_shape": chunks, "n_chunks": n_chunks, "generated_s": generated_s,
-           "repeats_chunked": len(chk), "repeats_in_memory": len(mem),
-           "chunked_s": _median([r["wall_s"] for r in chk]),
-           "chunked_peak_gb": _median([r["peak_rss_bytes"] for r in chk]) / gb,
-           "chunked_peak_reported_gb": _median([r["chunked"]["peak_memory_bytes"]
-                                                for r in chk]) / gb,
-           "halos": c0["halo_voxels"], "loads": [r["load_before"] for r in mem + chk]}
-    steps = {}
-    for step in chk[0]["timings_s"]:
-        steps[step] = _median([r["timings_s"].get(step, float("nan")) for r in chk])
-    row["chunked_step_s"] = steps
-    row["chunked_step_s_per_chunk"] = {k: v / n_chunks for k, v in steps.items()}
-    row["chunked_peak_gb_by_step"] = {k: v / gb for k, v in
-                                      c0["peak_memory_bytes_by_step"].items()}
-    print(f"\n=== {n}^3 uint16 ({2 * n**3 / 1e9:.2f} GB), chunks {chunks} ({n_chunks}), "
-          f"halos {c0['halo_voxels']}")
+    mem, chk = runs.get("in-memory", []), runs.get("chunked", [])
+    row = {"size": n, "generated_s": generated_s, "repeats_chunked": len(chk),
+           "repeats_in_memory": len(mem), "loads": [r["load_before"] for r in mem + chk]}
+    print(f"\n=== {n}^3 uint16 ({2 * n**3 / 1e9:.2f} GB)")
     if mem:
         row["in_memory_s"] = _median([r["wall_s"] for r in mem])
-        row["in_memory_peak_gb"] = _median([r["peak_rss_bytes"] for r in mem]) / gb
-        row["in_memory_bytes_per_voxel"] = row["in_memory_peak_gb"] * gb / n**3
-        row["ratio_time"] = row["chunked_s"] / row["in_memory_s"]
+        row["in_memory_peak_gb"] = _gb_median(mem, "peak_rss_bytes")
+        row["in_memory_peak_anonymous_gb"] = _gb_median(mem, "peak_anonymous_bytes")
+        row["in_memory_bytes_per_voxel"] = row["in_memory_peak_gb"] * 1e9 / n**3
         row["in_memory_step_s"] = {k: _median([r["timings_s"].get(k, float("nan"))
                                                for r in mem]) for k in mem[0]["timings_s"]}
-        cmp = compare(mem[0]["summary"], chk[0]["summary"])
-        row["compare"] = {k: v for k, v in cmp.items() if k != "differ"}
-        row["compare"]["differ"] = {k: list(v) for k, v in cmp["differ"].items()}
-        print(f"in-memory : {row['in_memory_s']:8.1f} s  peak {row['in_memory_peak_gb']:.2f} GB "
-              f"({row['in_memory_bytes_per_voxel']:.1f} B/voxel)  [{len(mem)} run(s)]")
+        print(f"in-memory : {row['in_memory_s']:8.1f} s  peak RSS {row['in_memory_peak_gb']:.2f} GB "
+              f"({row['in_memory_bytes_per_voxel']:.1f} B/voxel), anonymous "
+              f"{row['in_memory_peak_anonymous_gb']:.2f} GB  [{len(mem)} run(s)]")
         for k, v in row["in_memory_step_s"].items():
             print(f"      {v:8.1f} s  {k}")
     else:
         print(f"in-memory : skipped ({skipped_note})")
-    print(f"chunked   : {row['chunked_s']:8.1f} s  peak {row['chunked_peak_gb']:.2f} GB "
-          f"(reported by the run: {row['chunked_peak_reported_gb']:.2f} GB)  [{len(chk)} run(s)]")
-    for k, v in steps.items():
-        print(f"      {v:8.1f} s  {v / n_chunks:7.2f} s/chunk  "
-              f"peak {row['chunked_peak_gb_by_step'].get(k, float('nan')):.2f} GB  {k}")
-    if mem:
-        cmp = row["compare"]
+    if chk:
+        c0 = chk[0]["chunked"]
+        chunks = c0["chunk_shape_voxels"]
+        n_chunks = math.prod(math.ceil(n / c) for c in chunks)
+        row.update({"chunk_shape": chunks, "n_chunks": n_chunks, "halos": c0["halo_voxels"],
+                    "chunked_s": _median([r["wall_s"] for r in chk]),
+                    "chunked_peak_gb": _gb_median(chk, "peak_rss_bytes"),
+                    "chunked_peak_anonymous_gb": _gb_median(chk, "peak_anonymous_bytes"),
+                    "chunked_peak_reported_gb": _median([r["chunked"]["peak_memory_bytes"]
+                                                         for r in chk]) / 1e9})
+        steps = {step: _median([r["timings_s"].get(step, float("nan")) for r in chk])
+                 for step in chk[0]["timings_s"]}
+        row["chunked_step_s"] = steps
+        row["chunked_step_s_per_chunk"] = {k: v / n_chunks for k, v in steps.items()}
+        row["chunked_peak_gb_by_step"] = {k: v / 1e9 for k, v in
+                                          c0["peak_memory_bytes_by_step"].items()}
+        print(f"chunked   : {row['chunked_s']:8.1f} s  peak RSS {row['chunked_peak_gb']:.2f} GB, "
+              f"anonymous {row['chunked_peak_anonymous_gb']:.2f} GB (budget "
+              f"{MEMORY_LIMIT_BYTES / 1e9:.2f} GB); chunks {chunks} ({n_chunks}), halos "
+              f"{c0['halo_voxels']}  [{len(chk)} run(s)]")
+        for k, v in steps.items():
+            print(f"      {v:8.1f} s  {v / n_chunks:7.2f} s/chunk  "
+                  f"peak RSS {row['chunked_peak_gb_by_step'].get(k, float('nan')):.2f} GB  {k}")
+    if mem and chk:
+        row["ratio_time"] = row["chunked_s"] / row["in_memory_s"]
+        cmp = compare(mem[0]["summary"], chk[0]["summary"])
+        row["compare"] = {k: v for k, v in cmp.items() if k != "differ"}
+        row["compare"]["differ"] = {k: list(v) for k, v in cmp["differ"].items()}
         print(f"time chunked / in-memory: {row['ratio_time']:.2f}")
         print(f"porosity identical (gas/open/closed): {cmp['porosity_identical']}; "
               f"{cmp['identical']} of {cmp['keys']} compared numbers identical, largest "
@@ -282,13 +320,19 @@ def main():
                                  formatter_class=argparse.RawDescriptionHelpFormatter)
     ap.add_argument("--sizes", type=int, nargs="+", default=[512, 1024])
     ap.add_argument("--repeat", type=int, default=1, help="runs per size (medians are printed)")
+    ap.add_argument("--modes", nargs="+", choices=MODES, default=list(MODES),
+                    help="which analyses to run (default both)")
+    ap.add_argument("--save-runs", type=Path, metavar="DIR",
+                    help="copy each run's raw record (JSON) into DIR")
+    ap.add_argument("--add-runs", type=Path, nargs="+", default=[], metavar="FILE",
+                    help="raw run records saved earlier (--save-runs) to report with this "
+                         "run's, matched by size (e.g. a long chunked run at 1024^3)")
     ap.add_argument("--keep", action="store_true", help="keep the temporary folder")
     ap.add_argument("--json", type=Path, help="also write the medians to this JSON file")
     args = ap.parse_args()
     import psutil
 
-    from ctpore.chunked import in_memory_peak_bytes
-
+    earlier = [json.loads(p.read_text()) for p in args.add_runs]
     tmp = Path(tempfile.mkdtemp(prefix="ctpore-scale-"))
     print(f"working folder {tmp}; {os.cpu_count()} CPUs, "
           f"{psutil.virtual_memory().total / 1e9:.1f} GB RAM, load {os.getloadavg()}")
@@ -299,16 +343,21 @@ def main():
             stack = write_stack(tmp / f"piece_{n}.ome.tif", n)
             generated = time.perf_counter() - t0
             print(f"generated {n}^3 uint16 stack in {generated:.1f} s")
-            est, avail = in_memory_peak_bytes((n, n, n)), psutil.virtual_memory().available
+            est = IN_MEMORY_BENCH_BYTES_PER_VOXEL * n**3
+            avail = psutil.virtual_memory().available
             skip = None
-            if est > 0.8 * avail:
-                skip = (f"estimated in-memory peak {est / 1e9:.1f} GB > 80 % of the "
+            if "in-memory" not in args.modes:
+                skip = "not asked for (--modes)"
+            elif est > 0.9 * avail:
+                skip = (f"estimated in-memory peak {est / 1e9:.1f} GB > 90 % of the "
                         f"{avail / 1e9:.1f} GB available")
-            runs = {"in-memory": [], "chunked": []}
+            runs = {m: [r for r in earlier if r["mode"] == m and r.get("size") == n]
+                    for m in MODES}
             for _ in range(args.repeat):
                 if skip is None:
-                    runs["in-memory"].append(run_child("in-memory", stack, tmp))
-                runs["chunked"].append(run_child("chunked", stack, tmp))
+                    runs["in-memory"].append(run_child("in-memory", stack, tmp, args.save_runs))
+                if "chunked" in args.modes:
+                    runs["chunked"].append(run_child("chunked", stack, tmp, args.save_runs))
             rows.append(report(n, runs, generated, skip))
             if not args.keep:
                 stack.unlink()
