@@ -8,8 +8,9 @@ per-component tables of the labelling.
 
 Not computed in chunked mode (the summary's warnings list them): the cell, surface, topology,
 anisotropy and chord measures, and the segmentation-uncertainty ensemble. Refused with an
-InputError naming the recipe key: threshold methods "li" and "triangle", envelope methods other
-than "closing", and the corrections (rings, cupping, thin walls, uncertainty).
+InputError naming the recipe key: threshold method "li" on float stacks (it needs every grey
+value at once), envelope methods other than "closing", and the corrections (rings, cupping,
+thin walls, uncertainty).
 """
 
 from __future__ import annotations

@@ -21,8 +21,10 @@ from ..segment.threshold import ThresholdChoice, grey_histogram, threshold_value
 
 __all__ = ["ChunkRows", "chunked_threshold", "chunked_histogram", "STREAMING_METHODS"]
 
-#: Threshold methods that work from the histogram alone.
-STREAMING_METHODS = ("otsu", "isodata", "multiotsu", "peak_midpoint", "manual")
+#: Threshold methods that work from the histogram alone ("li" on integer stacks only: on float
+#: stacks it needs every grey value and :func:`chunked_threshold` refuses it).
+STREAMING_METHODS = ("otsu", "isodata", "li", "triangle", "multiotsu", "peak_midpoint",
+                     "manual")
 
 
 class ChunkRows:
@@ -56,7 +58,8 @@ def chunked_threshold(grey, blocks, *, section) -> ThresholdChoice:
     Raises
     ------
     InputError
-        For ``threshold.method`` "li" or "triangle" (they need all grey values in memory).
+        For a method outside :data:`STREAMING_METHODS`, and for "li" on a float stack (it needs
+        all grey values in memory).
     """
     section.check()
     if section.method not in STREAMING_METHODS:
@@ -65,7 +68,7 @@ def chunked_threshold(grey, blocks, *, section) -> ThresholdChoice:
             "which the chunked (--memory) path does not do",
             f"use one of {list(STREAMING_METHODS)} in the recipe's [threshold] section, or run "
             "without --memory on a machine with enough memory")
-    return threshold_value(ChunkRows(grey, blocks), section=section)
+    return threshold_value(ChunkRows(grey, blocks), section=section, values_in_memory=False)
 
 
 def chunked_histogram(grey, blocks):

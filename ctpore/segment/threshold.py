@@ -100,7 +100,8 @@ def grey_histogram(volume, *, mask=None, bins: int | None = None):
     return counts, centres
 
 
-def threshold_value(volume, *, section: ThresholdSection, mask=None) -> ThresholdChoice:
+def threshold_value(volume, *, section: ThresholdSection, mask=None,
+                    values_in_memory: bool = True) -> ThresholdChoice:
     """Choose the grey-value threshold between gas and solid.
 
     Methods (``section.method``); the scikit-image implementations are used throughout:
@@ -111,11 +112,13 @@ def threshold_value(volume, *, section: ThresholdSection, mask=None) -> Threshol
     ``"isodata"``
         Iterative intermeans [2]_ (``threshold_isodata`` on the histogram).
     ``"li"``
-        Minimum cross-entropy [3]_ (``threshold_li`` on the grey values themselves; it takes no
-        histogram).
+        Minimum cross-entropy [3]_. On integer stacks (one bin per grey value) from the
+        histogram, with the operations of ``threshold_li``'s integer branch, so the value is
+        scikit-image's to the last bit (tested); on float stacks ``threshold_li`` on the grey
+        values themselves (it takes no float histogram).
     ``"triangle"``
-        Triangle method [4]_ (``threshold_triangle`` on the grey values, with the same bins as
-        :func:`grey_histogram`).
+        Triangle method [4]_, from the histogram of :func:`grey_histogram` with the operations
+        of ``threshold_triangle`` (which bins the values the same way), equal to it (tested).
     ``"multiotsu"``
         Multi-level Otsu [5]_ with ``section.classes`` classes (``threshold_multiotsu`` on the
         histogram, merged to at most 1024 bins for 2-3 classes, 256 for 4 and 128 for 5 to bound
@@ -142,6 +145,9 @@ def threshold_value(volume, *, section: ThresholdSection, mask=None) -> Threshol
         The recipe's ``[threshold]`` section.
     mask : array_like of bool, optional
         Only voxels where it is True enter the histogram (e.g. the inside of the sample holder).
+    values_in_memory : bool
+        False when ``volume`` must only be streamed (the chunked path): the one method that
+        needs every grey value at once (``li`` on float stacks) then raises InputError.
 
     Returns
     -------
@@ -194,11 +200,18 @@ def threshold_value(volume, *, section: ThresholdSection, mask=None) -> Threshol
         value = filters.threshold_otsu(hist=(counts, centres))
     elif method == "isodata":
         value = filters.threshold_isodata(hist=(counts, centres))
+    elif method == "li" and info["exact_integer_bins"]:
+        value = _li_integer_histogram(counts, centres)
     elif method == "li":
-        value = filters.threshold_li(_values(volume, mask, info["exact_integer_bins"]))
+        if not values_in_memory:
+            raise InputError(
+                "threshold.method = 'li' on a float stack (or one with more than 65536 integer "
+                "grey values) needs every grey value in memory at once, which the chunked "
+                "(--memory) path does not do",
+                "use another [threshold] method, or run in memory (without --memory)")
+        value = filters.threshold_li(_values(volume, mask, False))
     elif method == "triangle":
-        value = filters.threshold_triangle(_values(volume, mask, info["exact_integer_bins"]),
-                                           nbins=int(counts.size))
+        value = _triangle_histogram(counts, centres)
     elif method == "multiotsu":
         value = _multiotsu(counts, centres, section, details)
     elif method == "peak_midpoint":
@@ -334,6 +347,64 @@ def _histogram(volume, mask, bins):
         counts += c
     centres = (edges[:-1] + edges[1:]) / 2  # in the edges' dtype, as scikit-image has them
     return counts, centres, info
+
+
+def _li_integer_histogram(counts, centres) -> float:
+    """``skimage.filters.threshold_li`` of integer grey values, from their exact histogram.
+
+    The integer branch of scikit-image (0.19+) already iterates on the histogram of the values
+    minus their minimum, with float32 weights and ``np.average``; this repeats those operations
+    on ``grey_histogram``'s exact counts, so it needs no copy of the values. Li & Tam (1998).
+    """
+    lo = int(centres[0])
+    bin_centers = np.asarray(centres, dtype=np.int64) - lo
+    counts = np.asarray(counts, dtype=np.int64)
+    hist = counts.astype(np.float32)
+    tolerance = 0.5
+    # np.mean of the shifted integer values: their exact sum (float64 holds it) over the count
+    t_next = np.float64(int(np.dot(counts, bin_centers))) / int(counts.sum())
+    t_curr = -2 * tolerance
+    while abs(t_next - t_curr) > tolerance:
+        t_curr = t_next
+        foreground = bin_centers > t_curr
+        background = ~foreground
+        mean_fore = np.average(bin_centers[foreground], weights=hist[foreground])
+        mean_back = np.average(bin_centers[background], weights=hist[background])
+        if mean_back == 0:
+            break
+        t_next = (mean_back - mean_fore) / (np.log(mean_back) - np.log(mean_fore))
+    return float(t_next + lo)
+
+
+def _triangle_histogram(counts, centres) -> float:
+    """``skimage.filters.threshold_triangle`` from a histogram (Zack et al. 1977).
+
+    scikit-image bins the values exactly as :func:`grey_histogram` does (one bin per integer,
+    or ``nbins`` equal bins over the range for floats) and then runs these steps.
+    """
+    hist = np.asarray(counts)
+    nbins = len(hist)
+    arg_peak_height = np.argmax(hist)
+    peak_height = hist[arg_peak_height]
+    arg_low_level, arg_high_level = np.flatnonzero(hist)[[0, -1]]
+    if arg_low_level == arg_high_level:
+        return float(centres[arg_low_level])
+    flip = arg_peak_height - arg_low_level < arg_high_level - arg_peak_height
+    if flip:
+        hist = hist[::-1]
+        arg_low_level = nbins - arg_high_level - 1
+        arg_peak_height = nbins - arg_peak_height - 1
+    width = arg_peak_height - arg_low_level
+    x1 = np.arange(width)
+    y1 = hist[x1 + arg_low_level]
+    norm = np.sqrt(peak_height**2 + width**2)
+    peak_height = peak_height / norm
+    width = width / norm
+    length = peak_height * x1 - width * y1
+    arg_level = np.argmax(length) + arg_low_level
+    if flip:
+        arg_level = nbins - arg_level - 1
+    return float(centres[arg_level])
 
 
 def _values(volume, mask, exact):

@@ -94,7 +94,6 @@ def test_dask_array_input(small, tmp_path):
 
 
 @pytest.mark.parametrize("section, key, value", [
-    ("threshold", "method", "li"), ("threshold", "method", "triangle"),
     ("envelope", "method", "rolling_sphere"), ("corrections", "cupping", True),
     ("corrections", "thin_walls", "hysteresis"), ("corrections", "uncertainty", True)])
 def test_refused_recipe_keys_name_the_key(section, key, value, tmp_path):

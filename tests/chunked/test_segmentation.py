@@ -54,15 +54,33 @@ def test_gaussian_denoise_exact(workspace, runner):
 
 
 @pytest.mark.parametrize("method", ["li", "triangle"])
-def test_threshold_methods_needing_all_values_are_refused(workspace, method):
+def test_li_and_triangle_from_the_streamed_histogram(piece, workspace, method):
+    # Reference: scikit-image's threshold_li / threshold_triangle on the whole grey stack in
+    # memory; the chunked path sees only the streamed histogram and must give the same value.
+    from skimage import filters
+
+    from ctpore.chunked.histogram import chunked_threshold
+    from ctpore.recipe import ThresholdSection
+
+    grey = piece[0]
+    assert grey.dtype.kind == "u"
+    put(workspace, "g", grey)
+    choice = chunked_threshold(workspace.array("g"), workspace.blocks,
+                               section=ThresholdSection(method=method))
+    reference = getattr(filters, f"threshold_{method}")(np.asarray(grey))
+    assert choice.value == float(reference)
+
+
+def test_li_on_a_float_stack_is_refused(workspace):
     from ctpore.chunked.histogram import chunked_threshold
     from ctpore.errors import InputError
     from ctpore.recipe import ThresholdSection
 
-    put(workspace, "g", np.zeros((192, 192, 192), np.uint8))
-    arr = workspace.array("g")
-    with pytest.raises(InputError, match=f"threshold.method = '{method}'"):
-        chunked_threshold(arr, workspace.blocks, section=ThresholdSection(method=method))
+    rng = np.random.default_rng(0)
+    put(workspace, "g", rng.random((192, 192, 192), dtype=np.float32))
+    with pytest.raises(InputError, match="threshold.method = 'li' on a float stack"):
+        chunked_threshold(workspace.array("g"), workspace.blocks,
+                          section=ThresholdSection(method="li"))
 
 
 def test_clean_envelope_phases(piece, workspace, runner):
