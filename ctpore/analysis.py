@@ -123,7 +123,8 @@ def analyze(stack, *, spacing_um=None, recipe=None, out=None, force: bool = Fals
                         + (1 if recipe.corrections.cupping else 0)
                         + (1 if recipe.corrections.uncertainty else 0), quiet=quiet)
     scan = _as_scan(stack, spacing_um, read_stack)  # lazy: nothing is read yet
-    if _use_chunked(scan.shape, memory_limit_bytes, scheduler):
+    if _use_chunked(scan.shape, memory_limit_bytes, scheduler,
+                    structure=recipe.structure.enabled):
         from .chunked import analyze_chunked
 
         return analyze_chunked(scan, recipe=recipe, memory_limit_bytes=memory_limit_bytes,
@@ -196,7 +197,7 @@ def _as_scan(stack, spacing_um, read_stack) -> Scan:
     return Scan(array, spacing_um, "<array>", "user", {"format": "array"})
 
 
-def _use_chunked(shape, memory_limit_bytes, scheduler) -> bool:
+def _use_chunked(shape, memory_limit_bytes, scheduler, *, structure: bool = True) -> bool:
     """True when a scheduler is given or the in-memory peak would exceed the budget."""
     if scheduler is not None:
         return True
@@ -209,7 +210,7 @@ def _use_chunked(shape, memory_limit_bytes, scheduler) -> bool:
         except ImportError:
             return False
         budget = 0.8 * psutil.virtual_memory().available
-    return in_memory_peak_bytes(tuple(shape)) > budget
+    return in_memory_peak_bytes(tuple(shape), structure=structure) > budget
 
 
 def _check_contrast(grey, source):

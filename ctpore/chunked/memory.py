@@ -12,11 +12,16 @@ from contextlib import contextmanager
 from ..errors import InputError
 
 __all__ = ["parse_memory", "choose_chunks", "in_memory_peak_bytes", "PeakMemory",
-           "IN_MEMORY_BYTES_PER_VOXEL", "TASK_BYTES_PER_VOXEL"]
+           "IN_MEMORY_BYTES_PER_VOXEL", "IN_MEMORY_BYTES_PER_VOXEL_NO_STRUCTURE",
+           "TASK_BYTES_PER_VOXEL"]
 
 #: Peak bytes per voxel of the in-memory ``analyze`` (measured on the default recipe, with
 #: structure measures and profiles), used to decide when to switch to the chunked path.
 IN_MEMORY_BYTES_PER_VOXEL = 55
+#: The same without the structure measures (segmentation, porosity, partial volume,
+#: profiles): 16 measured at 384³ (bench/scale.py's in-memory steps, local thickness of pores
+#: and walls included), with margin.
+IN_MEMORY_BYTES_PER_VOXEL_NO_STRUCTURE = 20
 #: Working bytes per voxel of one chunked task on its extended block (the largest are the
 #: local-thickness tasks: mask, float32 distances, distance index, float32 result, and the label
 #: tasks with int32 labels widened to int64 node ids). Measured, with margin.
@@ -62,9 +67,14 @@ def parse_memory(text) -> int:
     return int(size)
 
 
-def in_memory_peak_bytes(shape) -> int:
-    """Estimated peak memory of the in-memory ``analyze`` for a stack of this shape."""
-    return IN_MEMORY_BYTES_PER_VOXEL * math.prod(int(s) for s in shape)
+def in_memory_peak_bytes(shape, *, structure: bool = True) -> int:
+    """Estimated peak memory of the in-memory ``analyze`` for a stack of this shape.
+
+    ``structure`` is the recipe's ``[structure] enabled``: cells, surface, topology,
+    anisotropy and chords need about 2.7 times the memory of the rest.
+    """
+    per_voxel = IN_MEMORY_BYTES_PER_VOXEL if structure else IN_MEMORY_BYTES_PER_VOXEL_NO_STRUCTURE
+    return per_voxel * math.prod(int(s) for s in shape)
 
 
 def _workers(workers):

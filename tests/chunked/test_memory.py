@@ -49,6 +49,7 @@ def test_in_memory_estimate():
     from ctpore.chunked import in_memory_peak_bytes
 
     assert in_memory_peak_bytes((100, 100, 100)) == 55 * 10**6
+    assert in_memory_peak_bytes((100, 100, 100), structure=False) == 20 * 10**6
 
 
 def test_peak_memory_sees_an_allocation():
@@ -88,3 +89,14 @@ def test_anonymous_peak_leaves_out_a_memory_mapped_file(tmp_path):
     assert m.peak_bytes - m.start_bytes > 100 * 2**20
     assert m.peak_anonymous_bytes - m.start_anonymous_bytes < 60 * 2**20
     del mapped
+
+
+def test_analyze_goes_chunked_from_the_recipes_estimate():
+    # 10⁶ voxels under a 30 MB budget: the whole analysis
+    # (55 B/voxel) goes chunked, the one without structure measures (20 B/voxel) stays.
+    from ctpore.analysis import _use_chunked
+
+    shape = (100, 100, 100)
+    assert _use_chunked(shape, 30 * 10**6, None, structure=True)
+    assert not _use_chunked(shape, 30 * 10**6, None, structure=False)
+    assert _use_chunked(shape, 10**15, "synchronous", structure=False)  # a scheduler asks
